@@ -1,0 +1,1 @@
+"""sondage.forward: the physics of ion backscattering (no sampling, no storage)."""

@@ -1,0 +1,1 @@
+"""sondage.inversion: parameters, priors, likelihoods, samplers and result files."""
