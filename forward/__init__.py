@@ -1,1 +1,74 @@
-"""sondage.forward: the physics of ion backscattering (no sampling, no storage)."""
+"""sondage.forward: the physics of ion backscattering.
+
+This package knows beams, geometry, targets, cross-sections, stopping, energy loss, straggling,
+run files, spectrum files and the spectrum model.  It knows nothing about sampling or storage.
+
+Public names are resolved lazily (PEP 562), so ``import forward`` stays cheap and the numba
+kernels compile only when a model is first built.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+# public name -> private module that defines it
+_EXPORTS = {
+    # errors and elements
+    "InputError": "._errors",
+    "Element": "._elements",
+    "Isotope": "._elements",
+    "element": "._elements",
+    "isotope": "._elements",
+    "ion": "._elements",
+    "parse_formula": "._elements",
+    # one scattering event
+    "kinematic_factor": "._kinematics",
+    "rutherford_cross_section": "._cross_section",
+    "screening_factor": "._cross_section",
+    "non_rutherford_onset_keV": "._cross_section",
+    "check_rutherford_validity": "._cross_section",
+    "NonRutherfordWarning": "._cross_section",
+    "RatioTable": "._cross_section",
+    "load_ratio_table": "._cross_section",
+    # stopping
+    "stopping": "._stopping",
+    "StoppingModel": "._stopping",
+    "helium_electronic_stopping": "._stopping",
+    "nuclear_stopping": "._stopping",
+    "load_stopping_table": "._stopping",
+    "StoppingRangeWarning": "._stopping",
+    # paths and straggling
+    "energy_after_path": "._path",
+    "path_to_energy": "._path",
+    "stopping_cross_section_factor": "._path",
+    "bohr_variance": "._straggling",
+    "straggling_rate": "._straggling",
+    "propagate": "._straggling",
+    # inputs
+    "Run": "._runfile",
+    "load_run": "._runfile",
+    "parse_run": "._runfile",
+    "Spectrum": "._spectrum_io",
+    "read_spectrum": "._spectrum_io",
+    "write_spectrum_csv": "._spectrum_io",
+    # the spectrum model
+    "ForwardModel": "._model",
+    "Nuisance": "._model",
+    "SliceGrid": "._model",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module 'forward' has no attribute {name!r}") from None
+    value = getattr(importlib.import_module(module, __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(__all__))
