@@ -1,0 +1,885 @@
+"""The run file: one TOML file that describes an experiment and a sample model.
+
+The schema is documented key by key in ``docs/runfile.md``.  This module reads the file with
+:mod:`tomllib`, checks every value and builds frozen dataclasses.  Every problem raises
+:class:`forward.InputError` with ``where="<file>: <dotted key>"``, e.g.
+``run.toml: layer[2].areal_density_1e15`` (layers are counted from 1, top layer first).
+
+Geometry conventions (angles in degrees, measured from the sample normal):
+
+* ``incidence_deg`` (th1) is the angle between the reversed beam direction and the normal,
+* ``exit_deg`` (th2) is the angle between the direction towards the detector and the normal,
+* ``scattering_deg`` (theta) is the angle between the beam and the detector direction.
+
+The three directions (reversed beam, normal, detector) form a spherical triangle whose sides
+are th1, th2 and 180 - theta, so a direct triple must satisfy the triangle inequalities
+``|th1 - th2| <= 180 - theta <= th1 + th2`` (common practice; any spherical geometry text).
+With a tilt instead (tilt from the untilted position, where the normal points back along the
+beam), two layouts are known by name in the trade:
+
+* IBM layout, tilt axis perpendicular to the scattering plane:
+  ``th1 = |tilt|``, ``th2 = |180 - theta + tilt|``; a positive tilt turns the normal away from
+  the detector, so the exit path becomes longer.
+* Cornell layout, tilt axis in the scattering plane and perpendicular to the beam:
+  ``th1 = |tilt|``, ``cos th2 = -cos(theta) cos(tilt)``.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+import scipy.constants
+
+from ._elements import Isotope, element, ion, isotope, parse_formula
+from ._errors import InputError
+
+__all__ = [
+    "Run",
+    "Beam",
+    "Geometry",
+    "Detector",
+    "Calibration",
+    "Exposure",
+    "Layer",
+    "Physics",
+    "Pileup",
+    "load_run",
+    "parse_run",
+    "ibm_angles",
+    "cornell_angles",
+    "check_angle_triple",
+    "SCREENING_CHOICES",
+    "LAYOUT_CHOICES",
+    "MAX_CHANNELS",
+]
+
+#: Screening corrections the cross-section module knows.
+SCREENING_CHOICES = ("andersen", "lecuyer", "none")
+#: Named tilt layouts; ``"direct"`` is recorded when both angles are given.
+LAYOUT_CHOICES = ("IBM", "Cornell")
+#: A calibration must increase over at least this many channels (2**16, common ADC sizes).
+MAX_CHANNELS = 65536
+
+_TOP_KEYS = ("title", "beam", "geometry", "detector", "calibration", "exposure", "layer",
+             "physics", "fit")
+
+
+# ----------------------------------------------------------------------------------------------
+# geometry helpers
+# ----------------------------------------------------------------------------------------------
+def ibm_angles(scattering_deg: float, tilt_deg: float) -> tuple[float, float]:
+    """Incidence and exit angles for the IBM layout (tilt axis normal to the scattering plane).
+
+    Parameters
+    ----------
+    scattering_deg : float
+        Scattering angle theta in degrees.
+    tilt_deg : float
+        Sample tilt in degrees; positive turns the sample normal away from the detector.
+
+    Returns
+    -------
+    (incidence_deg, exit_deg) : tuple of float
+        ``th1 = |tilt|`` and ``th2 = |180 - theta + tilt|``.
+    """
+    return abs(tilt_deg), abs(180.0 - scattering_deg + tilt_deg)
+
+
+def cornell_angles(scattering_deg: float, tilt_deg: float) -> tuple[float, float]:
+    """Incidence and exit angles for the Cornell layout (tilt axis in the scattering plane).
+
+    Parameters
+    ----------
+    scattering_deg : float
+        Scattering angle theta in degrees.
+    tilt_deg : float
+        Sample tilt in degrees about the axis in the scattering plane perpendicular to the beam.
+
+    Returns
+    -------
+    (incidence_deg, exit_deg) : tuple of float
+        ``th1 = |tilt|`` and ``th2 = arccos(-cos(theta) cos(tilt))``.
+    """
+    c = -math.cos(math.radians(scattering_deg)) * math.cos(math.radians(tilt_deg))
+    return abs(tilt_deg), math.degrees(math.acos(max(-1.0, min(1.0, c))))
+
+
+def check_angle_triple(scattering_deg: float, incidence_deg: float, exit_deg: float,
+                       tol_deg: float = 1e-9) -> bool:
+    """True if a normal can make angles th1 and th2 with the reversed beam and the detector.
+
+    The reversed beam, the normal and the detector direction are three unit vectors; the arcs
+    between them are th1, th2 and 180 - theta, and three arcs close a spherical triangle only if
+    ``|th1 - th2| <= 180 - theta <= th1 + th2`` (the third condition, a perimeter of at most
+    360 degrees, always holds here because each side is below 90 degrees).
+    """
+    side = 180.0 - scattering_deg
+    return abs(incidence_deg - exit_deg) <= side + tol_deg and side <= incidence_deg + exit_deg + tol_deg
+
+
+# ----------------------------------------------------------------------------------------------
+# dataclasses
+# ----------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Beam:
+    """The incident ion and its energy.
+
+    Attributes
+    ----------
+    ion : Isotope
+        The beam ion (``4He`` or ``3He``), mass in u.
+    energy_keV : float
+        Incident energy in keV.
+    """
+
+    ion: Isotope
+    energy_keV: float
+
+    @property
+    def species(self) -> str:
+        """The ion as written in the run file, e.g. ``"4He"``."""
+        return self.ion.label
+
+
+@dataclass(frozen=True)
+class Geometry:
+    """Scattering geometry; all angles in degrees, incidence and exit from the sample normal.
+
+    ``layout`` is ``"IBM"`` or ``"Cornell"`` when a tilt was given, ``"direct"`` when both
+    angles were given; ``tilt_deg`` is None in the direct case.
+    """
+
+    scattering_deg: float
+    incidence_deg: float
+    exit_deg: float
+    layout: str = "direct"
+    tilt_deg: float | None = None
+
+    @property
+    def path_in_factor(self) -> float:
+        """1 / cos(th1): path length per unit depth on the way in."""
+        return 1.0 / math.cos(math.radians(self.incidence_deg))
+
+    @property
+    def path_out_factor(self) -> float:
+        """1 / cos(th2): path length per unit depth on the way out."""
+        return 1.0 / math.cos(math.radians(self.exit_deg))
+
+
+@dataclass(frozen=True)
+class Detector:
+    """Detector energy resolution (FWHM, keV) and solid angle (msr)."""
+
+    fwhm_keV: float
+    solid_angle_msr: float
+
+    @property
+    def sigma_keV(self) -> float:
+        """Gaussian standard deviation matching the FWHM: FWHM / (2 sqrt(2 ln 2))."""
+        return self.fwhm_keV / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+
+    @property
+    def solid_angle_sr(self) -> float:
+        """Solid angle in steradian."""
+        return self.solid_angle_msr * 1e-3
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """Channel to energy: ``E(c) = offset_keV + keV_per_channel * c + quadratic_keV * c**2``.
+
+    ``E(c)`` is the energy of the *lower edge* of channel ``c``; channel ``c`` holds the
+    particles detected with energies in ``[E(c), E(c + 1))``.
+    """
+
+    keV_per_channel: float
+    offset_keV: float = 0.0
+    quadratic_keV: float = 0.0
+
+    def energy_keV(self, channel):
+        """Energy (keV) of the lower edge of ``channel`` (scalar or array, may be fractional)."""
+        return self.offset_keV + self.keV_per_channel * channel + self.quadratic_keV * channel * channel
+
+    def centre_keV(self, channel):
+        """Energy (keV) at the middle of ``channel``: ``E(channel + 0.5)``."""
+        return self.energy_keV(channel + 0.5)
+
+    def channel_edges_keV(self, channels):
+        """Lower and upper edges (keV) of the given channels.
+
+        Parameters
+        ----------
+        channels : int or array of int
+            An int ``n`` means channels ``0 .. n-1``; an array lists the channels explicitly
+            (gaps allowed).
+
+        Returns
+        -------
+        (lower_keV, upper_keV) : tuple of numpy arrays
+        """
+        import numpy as np
+
+        ch = np.arange(int(channels)) if np.ndim(channels) == 0 else np.asarray(channels, float)
+        ch = ch.astype(float)
+        return self.energy_keV(ch), self.energy_keV(ch + 1.0)
+
+    def channel_of(self, energy_keV: float) -> float:
+        """Fractional channel position of an energy (the inverse of :meth:`energy_keV`).
+
+        ``floor(channel_of(E))`` is the channel that holds energy ``E``.
+        """
+        a, b, c = self.quadratic_keV, self.keV_per_channel, self.offset_keV - energy_keV
+        if a == 0.0:
+            return -c / b
+        disc = b * b - 4.0 * a * c
+        if disc < 0:
+            return math.inf
+        # the root on the increasing branch, written to avoid cancellation
+        return 2.0 * -c / (b + math.sqrt(disc))
+
+
+@dataclass(frozen=True)
+class Exposure:
+    """How many ions hit the sample.
+
+    Exactly one of ``charge_uC`` (integrated beam charge, microcoulomb) and ``particles`` is
+    set.  ``live_fraction`` is the fraction of the time the acquisition was live (1 - dead time).
+    """
+
+    charge_uC: float | None = None
+    particles: float | None = None
+    charge_state: int = 1
+    live_fraction: float = 1.0
+
+    @property
+    def incident_particles(self) -> float:
+        """Number of incident ions: ``charge / (e * charge_state)``, or ``particles``.
+
+        Uses the elementary charge from :mod:`scipy.constants` (CODATA).
+        """
+        if self.particles is not None:
+            return float(self.particles)
+        return self.charge_uC * 1e-6 / (scipy.constants.e * self.charge_state)
+
+    @property
+    def counted_particles(self) -> float:
+        """Incident ions seen by a live acquisition: ``incident_particles * live_fraction``."""
+        return self.incident_particles * self.live_fraction
+
+
+@dataclass(frozen=True)
+class Layer:
+    """One layer of the sample model, from the surface down.
+
+    Attributes
+    ----------
+    name : str
+    fractions : dict[str, float]
+        Atom fraction per element symbol, summing to 1, in formula order.
+    areal_density_1e15 : float or None
+        Areal density in 1e15 atoms/cm2; None for a semi-infinite substrate.
+    density_g_cm3 : float or None
+        Mass density, if given; lets depths be reported in nm.
+    isotopes : dict[str, dict[int, float]]
+        Isotope fractions (per element, summing to 1) that replace the natural abundances.
+    substrate : bool
+        True for the semi-infinite last layer.
+    formula : str
+        The formula as written.
+    """
+
+    name: str
+    fractions: dict
+    areal_density_1e15: float | None
+    density_g_cm3: float | None = None
+    isotopes: dict = field(default_factory=dict)
+    substrate: bool = False
+    formula: str = ""
+
+    def isotope_fractions(self, symbol: str) -> list[tuple[Isotope, float]]:
+        """The isotopes of one element in this layer with their fractions (summing to 1)."""
+        if symbol in self.isotopes:
+            return [(isotope(symbol, a), f) for a, f in self.isotopes[symbol].items() if f > 0]
+        return [(iso, iso.abundance) for iso in element(symbol).isotopes]
+
+    @property
+    def mean_mass_u(self) -> float:
+        """Atom-fraction weighted mean atomic mass (u), isotope overrides included."""
+        total = 0.0
+        for sym, frac in self.fractions.items():
+            if sym in self.isotopes:
+                m = sum(iso.mass_u * f for iso, f in self.isotope_fractions(sym))
+            else:
+                m = element(sym).mass_u
+            total += frac * m
+        return total
+
+    @property
+    def atoms_per_cm3(self) -> float | None:
+        """Atomic density ``rho N_A / M_mean`` in atoms/cm3, or None without a mass density."""
+        if self.density_g_cm3 is None:
+            return None
+        return self.density_g_cm3 * scipy.constants.N_A / self.mean_mass_u
+
+    @property
+    def thickness_nm(self) -> float | None:
+        """Thickness in nm from areal density and mass density, or None if either is missing."""
+        n = self.atoms_per_cm3
+        if n is None or self.areal_density_1e15 is None:
+            return None
+        return self.areal_density_1e15 * 1e15 / n * 1e7
+
+    def nm_per_1e15(self) -> float | None:
+        """Thickness in nm of 1e15 atoms/cm2 of this layer, or None without a mass density."""
+        n = self.atoms_per_cm3
+        return None if n is None else 1e15 / n * 1e7
+
+
+@dataclass(frozen=True)
+class Pileup:
+    """First-order pile-up: a pulse sums with another within ``resolving_time_us``.
+
+    The probability of a pile-up per pulse is ``p = count_rate_hz * resolving_time_us * 1e-6``.
+    Only the parameters are stored here; the spectrum model applies them.
+    """
+
+    enabled: bool = False
+    resolving_time_us: float = 0.5
+    count_rate_hz: float = 0.0
+
+    @property
+    def probability(self) -> float:
+        """``rate * tau``; 0 when pile-up is disabled."""
+        if not self.enabled:
+            return 0.0
+        return self.count_rate_hz * self.resolving_time_us * 1e-6
+
+
+@dataclass(frozen=True)
+class Physics:
+    """Model options; see ``docs/runfile.md`` for defaults.
+
+    Paths in ``stopping_tables`` and ``cross_section_ratio`` are absolute (resolved against the
+    run file's folder).
+    """
+
+    screening: str = "andersen"
+    slice_fraction: float = 0.25
+    max_slice_1e15: float | None = None
+    stopping_tables: dict = field(default_factory=dict)
+    stopping_scale: dict = field(default_factory=dict)
+    cross_section_ratio: dict = field(default_factory=dict)
+    pileup: Pileup = field(default_factory=Pileup)
+
+
+@dataclass(frozen=True)
+class Run:
+    """Everything one run file says.
+
+    ``source`` is the file name as given (or ``"<string>"``), ``text`` the file's text,
+    ``raw`` the parsed TOML (used by :meth:`with_overrides`), ``fit`` the ``[fit]`` table passed
+    through untouched.
+    """
+
+    title: str
+    beam: Beam
+    geometry: Geometry
+    detector: Detector
+    calibration: Calibration
+    exposure: Exposure
+    layers: tuple
+    physics: Physics
+    fit: dict
+    source: str = "<string>"
+    text: str = ""
+    raw: dict = field(default_factory=dict, repr=False, compare=False)
+    base_dir: Path = field(default_factory=Path.cwd, repr=False, compare=False)
+
+    @property
+    def elements(self) -> list[str]:
+        """Element symbols present in any layer, in order of first appearance from the top."""
+        seen: dict[str, None] = {}
+        for layer in self.layers:
+            for sym in layer.fractions:
+                seen.setdefault(sym, None)
+        return list(seen)
+
+    def with_overrides(self, changes: Mapping[str, Any], source: str | None = None) -> "Run":
+        """A new Run with some tables changed, checked exactly like a run file.
+
+        Parameters
+        ----------
+        changes : mapping
+            Tables in run-file form, e.g. ``{"exposure": {"charge_uC": 12.0},
+            "calibration": {"offset_keV": 18.5}}``.  Keys inside a table replace those of the
+            run file; setting ``charge_uC`` drops ``particles`` and the reverse.  ``layer`` and
+            ``fit`` are replaced whole.
+        source : str, optional
+            Where the changes came from, for error messages (default: this run's source).
+        """
+        raw = {k: (dict(v) if isinstance(v, dict) else v) for k, v in self.raw.items()}
+        where = source or self.source
+        for key, value in changes.items():
+            if key not in _TOP_KEYS:
+                raise InputError(f"unknown table {key!r}; allowed: {', '.join(_TOP_KEYS)}", where=where)
+            if isinstance(value, Mapping) and isinstance(raw.get(key), dict) and key not in ("fit",):
+                merged = dict(raw[key])
+                if key == "exposure":
+                    if "charge_uC" in value:
+                        merged.pop("particles", None)
+                    if "particles" in value:
+                        merged.pop("charge_uC", None)
+                merged.update(value)
+                raw[key] = merged
+            else:
+                raw[key] = value
+        return _build(raw, source=where, text=self.text, base_dir=self.base_dir)
+
+
+# ----------------------------------------------------------------------------------------------
+# reading
+# ----------------------------------------------------------------------------------------------
+def load_run(path) -> Run:
+    """Read and check a run file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file.  Paths inside it are resolved relative to its folder.
+
+    Returns
+    -------
+    Run
+
+    Raises
+    ------
+    InputError
+        For a missing or unreadable file and for every bad key or value.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise InputError("run file not found; give the path of an existing .toml file", where=str(path))
+    if p.is_dir():
+        raise InputError("this is a folder, not a run file; give the path of a .toml file", where=str(path))
+    data = p.read_bytes()
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not a UTF-8 text file (byte {exc.start}); a run file is TOML text",
+                         where=str(path)) from None
+    return parse_run(text, source=str(path), base_dir=p.resolve().parent)
+
+
+_TOML_AT = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
+
+
+def parse_run(text: str, source: str = "<string>", base_dir=None) -> Run:
+    """Check a run file given as text.
+
+    Parameters
+    ----------
+    text : str
+        TOML text.
+    source : str
+        Name used in error messages.
+    base_dir : str or Path, optional
+        Folder against which relative paths are resolved (default: the current folder).
+    """
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        msg = str(exc)
+        m = _TOML_AT.search(msg)
+        where = source
+        if m:
+            where = f"{source}: line {m.group(1)}"
+            msg = msg[: m.start()]
+        raise InputError(f"TOML syntax error: {msg[:1].lower() + msg[1:]}; the run file must be "
+                         "valid TOML (key = value, [table], [[layer]])", where=where) from None
+    base = Path(base_dir) if base_dir is not None else Path.cwd()
+    return _build(raw, source=source, text=text, base_dir=base)
+
+
+_MISSING = object()
+
+
+class _Table:
+    """A TOML table being read: tracks its dotted name and reports unknown keys."""
+
+    def __init__(self, source: str, name: str, value, allowed: tuple[str, ...]):
+        self.source = source
+        self.name = name
+        if not isinstance(value, dict):
+            raise InputError(f"expected a table ([{name}] or {{...}}), got {_kind(value)}",
+                             where=self.where_root())
+        self.data = value
+        unknown = [k for k in value if k not in allowed]
+        if unknown:
+            raise InputError(f"unknown key {unknown[0]!r} in [{name}]; allowed keys: "
+                             f"{', '.join(allowed)}", where=self.where(unknown[0]))
+
+    def where_root(self) -> str:
+        return f"{self.source}: {self.name}"
+
+    def where(self, key: str) -> str:
+        return f"{self.source}: {self.name}.{key}" if self.name else f"{self.source}: {key}"
+
+    def has(self, key: str) -> bool:
+        return key in self.data
+
+    def get(self, key: str, default=_MISSING):
+        if key not in self.data:
+            if default is _MISSING:
+                raise InputError(f"missing required key {key!r} in [{self.name}]", where=self.where(key))
+            return default
+        return self.data[key]
+
+    def number(self, key: str, default=_MISSING, *, low=None, high=None, low_open=True,
+               high_open=False, unit: str = "", allowed_text: str | None = None):
+        """A finite real number, optionally in (low, high]."""
+        v = self.get(key, default)
+        if v is default and default is not _MISSING:
+            return v
+        if isinstance(v, bool) or not isinstance(v, (int, float)):
+            raise InputError(f"expected a number{_unit(unit)}, got {_kind(v)}", where=self.where(key))
+        v = float(v)
+        rng = allowed_text or _range_text(low, high, low_open, high_open, unit)
+        if not math.isfinite(v):
+            raise InputError(f"{v} is not finite; allowed: {rng}", where=self.where(key))
+        if low is not None and (v <= low if low_open else v < low):
+            raise InputError(f"{_fmt(v)} is out of range; allowed: {rng}", where=self.where(key))
+        if high is not None and (v >= high if high_open else v > high):
+            raise InputError(f"{_fmt(v)} is out of range; allowed: {rng}", where=self.where(key))
+        return v
+
+    def string(self, key: str, default=_MISSING, choices: tuple[str, ...] | None = None):
+        v = self.get(key, default)
+        if v is default and default is not _MISSING:
+            return v
+        if not isinstance(v, str):
+            raise InputError(f"expected a text string in quotes, got {_kind(v)}", where=self.where(key))
+        if choices is not None and v not in choices:
+            raise InputError(f"unknown value {v!r}; allowed: {', '.join(repr(c) for c in choices)}",
+                             where=self.where(key))
+        return v
+
+    def boolean(self, key: str, default=_MISSING):
+        v = self.get(key, default)
+        if not isinstance(v, bool):
+            raise InputError(f"expected true or false, got {_kind(v)}", where=self.where(key))
+        return v
+
+
+def _kind(v) -> str:
+    if isinstance(v, bool):
+        return f"the boolean {str(v).lower()}"
+    if isinstance(v, (int, float)):
+        return f"the number {v!r}"
+    if isinstance(v, str):
+        return f"the string {v!r}"
+    if isinstance(v, dict):
+        return "a table"
+    if isinstance(v, list):
+        return "an array"
+    return type(v).__name__
+
+
+def _unit(unit: str) -> str:
+    return f" in {unit}" if unit else ""
+
+
+def _fmt(v: float) -> str:
+    return f"{v:g}"
+
+
+def _range_text(low, high, low_open, high_open, unit) -> str:
+    u = f" {unit}" if unit else ""
+    if low is not None and high is not None:
+        return f"{'(' if low_open else '['}{_fmt(low)}, {_fmt(high)}{')' if high_open else ']'}{u}"
+    if low is not None:
+        return f"{'>' if low_open else '>='} {_fmt(low)}{u}"
+    if high is not None:
+        return f"{'<' if high_open else '<='} {_fmt(high)}{u}"
+    return f"any finite number{u}"
+
+
+def _build(raw: dict, source: str, text: str, base_dir: Path) -> Run:
+    top = _Table(source, "", raw, _TOP_KEYS)
+    title = top.string("title", "")
+    beam = _read_beam(source, top)
+    geometry = _read_geometry(source, top)
+    detector = _read_detector(source, top)
+    calibration = _read_calibration(source, top)
+    exposure = _read_exposure(source, top)
+    layers = _read_layers(source, top)
+    physics = _read_physics(source, top, layers, base_dir)
+    fit = raw.get("fit", {})
+    if not isinstance(fit, dict):
+        raise InputError(f"expected a table [fit], got {_kind(fit)}", where=f"{source}: fit")
+    return Run(title=title, beam=beam, geometry=geometry, detector=detector,
+               calibration=calibration, exposure=exposure, layers=tuple(layers), physics=physics,
+               fit=fit, source=source, text=text, raw=raw, base_dir=base_dir)
+
+
+def _section(source: str, top: _Table, name: str, allowed: tuple[str, ...], required: bool = True):
+    if name not in top.data:
+        if not required:
+            return _Table(source, name, {}, allowed)
+        raise InputError(f"missing required table [{name}]", where=f"{source}: {name}")
+    return _Table(source, name, top.data[name], allowed)
+
+
+def _read_beam(source, top) -> Beam:
+    t = _section(source, top, "beam", ("ion", "energy_keV"))
+    species = t.string("ion")
+    try:
+        beam_ion = ion(species)
+    except InputError as exc:
+        raise InputError(exc.message, where=t.where("ion")) from None
+    energy = t.number("energy_keV", low=0.0, unit="keV")
+    return Beam(beam_ion, energy)
+
+
+def _read_geometry(source, top) -> Geometry:
+    t = _section(source, top, "geometry",
+                 ("scattering_deg", "incidence_deg", "exit_deg", "tilt_deg", "layout"))
+    theta = t.number("scattering_deg", low=90.0, high=180.0, unit="degrees")
+    direct = t.has("incidence_deg") or t.has("exit_deg")
+    tilted = t.has("tilt_deg") or t.has("layout")
+    if direct and tilted:
+        key = "tilt_deg" if t.has("tilt_deg") else "layout"
+        raise InputError("give either incidence_deg and exit_deg, or tilt_deg and layout, not both",
+                         where=t.where(key))
+    angle_text = "[0, 90) degrees from the sample normal"
+    if tilted:
+        for key in ("tilt_deg", "layout"):
+            if not t.has(key):
+                raise InputError(f"missing required key {key!r}: a tilt needs both tilt_deg and "
+                                 "layout ('IBM' or 'Cornell')", where=t.where(key))
+        tilt = t.number("tilt_deg", low=-90.0, high=90.0, low_open=True, high_open=True,
+                        unit="degrees")
+        layout = t.string("layout", choices=LAYOUT_CHOICES)
+        th1, th2 = (ibm_angles if layout == "IBM" else cornell_angles)(theta, tilt)
+        if th2 >= 90.0:
+            raise InputError(f"this tilt gives an exit angle of {th2:.4g} degrees from the normal, "
+                             "so the detector would look at the back of the sample; the exit angle "
+                             "must be below 90 degrees", where=t.where("tilt_deg"))
+        return Geometry(theta, th1, th2, layout, tilt)
+    for key in ("incidence_deg", "exit_deg"):
+        if not t.has(key):
+            raise InputError(f"missing required key {key!r}: give incidence_deg and exit_deg, "
+                             "or tilt_deg and layout", where=t.where(key))
+    th1 = t.number("incidence_deg", low=0.0, high=90.0, low_open=False, high_open=True,
+                   allowed_text=angle_text)
+    th2 = t.number("exit_deg", low=0.0, high=90.0, low_open=False, high_open=True,
+                   allowed_text=angle_text)
+    if not check_angle_triple(theta, th1, th2):
+        raise InputError(
+            f"no sample orientation gives incidence {th1:g}, exit {th2:g} and scattering "
+            f"{theta:g} degrees; allowed: |incidence - exit| <= 180 - scattering <= "
+            "incidence + exit", where=t.where("exit_deg"))
+    return Geometry(theta, th1, th2, "direct", None)
+
+
+def _read_detector(source, top) -> Detector:
+    t = _section(source, top, "detector", ("fwhm_keV", "solid_angle_msr"))
+    fwhm = t.number("fwhm_keV", low=0.0, unit="keV")
+    omega = t.number("solid_angle_msr", low=0.0, high=4000.0 * math.pi, unit="msr")
+    return Detector(fwhm, omega)
+
+
+def _read_calibration(source, top) -> Calibration:
+    t = _section(source, top, "calibration", ("keV_per_channel", "offset_keV", "quadratic_keV"))
+    gain = t.number("keV_per_channel", low=0.0, unit="keV per channel")
+    offset = t.number("offset_keV", 0.0, unit="keV")
+    quad = t.number("quadratic_keV", 0.0, unit="keV per channel^2")
+    if quad < 0 and -gain / (2.0 * quad) < MAX_CHANNELS:
+        raise InputError(f"with this negative quadratic term the energy stops increasing at channel "
+                         f"{-gain / (2.0 * quad):.0f}; the calibration must increase over "
+                         f"{MAX_CHANNELS} channels, so use a quadratic term >= "
+                         f"{-gain / (2.0 * MAX_CHANNELS):.3g}", where=t.where("quadratic_keV"))
+    return Calibration(gain, offset, quad)
+
+
+def _read_exposure(source, top) -> Exposure:
+    t = _section(source, top, "exposure", ("charge_uC", "particles", "charge_state", "live_fraction"))
+    if t.has("charge_uC") == t.has("particles"):
+        raise InputError("give exactly one of charge_uC (integrated charge, microcoulomb) and "
+                         "particles (number of incident ions)",
+                         where=t.where("particles" if t.has("particles") else "charge_uC"))
+    charge = t.number("charge_uC", None, low=0.0, unit="microcoulomb")
+    particles = t.number("particles", None, low=0.0)
+    state = t.get("charge_state", 1)
+    if isinstance(state, bool) or not isinstance(state, int) or state not in (1, 2):
+        raise InputError(f"expected the whole number 1 or 2 (charge of the helium ions in units of "
+                         f"e), got {_kind(state)}", where=t.where("charge_state"))
+    live = t.number("live_fraction", 1.0, low=0.0, high=1.0)
+    return Exposure(charge, particles, state, live)
+
+
+def _read_layers(source, top) -> list[Layer]:
+    if "layer" not in top.data:
+        raise InputError("missing required [[layer]] tables; describe the sample from the surface "
+                         "down with one [[layer]] each", where=f"{source}: layer")
+    entries = top.data["layer"]
+    if not isinstance(entries, list) or not entries:
+        raise InputError(f"expected one or more [[layer]] tables, got {_kind(entries)}",
+                         where=f"{source}: layer")
+    layers: list[Layer] = []
+    names: set[str] = set()
+    for i, entry in enumerate(entries, start=1):
+        t = _Table(source, f"layer[{i}]", entry,
+                   ("name", "formula", "areal_density_1e15", "thickness_nm", "density_g_cm3",
+                    "isotopes", "substrate"))
+        name = t.string("name", f"layer {i}")
+        if not name.strip():
+            raise InputError("empty layer name; give a short text or leave the key out",
+                             where=t.where("name"))
+        if name in names:
+            raise InputError(f"layer name {name!r} is used twice; each layer needs its own name",
+                             where=t.where("name"))
+        names.add(name)
+        formula = t.string("formula")
+        try:
+            fractions = parse_formula(formula)
+        except InputError as exc:
+            raise InputError(exc.message, where=t.where("formula")) from None
+        substrate = t.boolean("substrate", False)
+        if substrate and i != len(entries):
+            raise InputError(f"only the last layer can be the substrate, but this is layer {i} of "
+                             f"{len(entries)}; move it to the end or set substrate = false",
+                             where=t.where("substrate"))
+        density = t.number("density_g_cm3", None, low=0.0, high=30.0, unit="g/cm3")
+        isotopes = _read_isotopes(t, fractions)
+        has_n, has_nm = t.has("areal_density_1e15"), t.has("thickness_nm")
+        if substrate:
+            if has_n or has_nm:
+                key = "areal_density_1e15" if has_n else "thickness_nm"
+                raise InputError("a substrate is semi-infinite and takes no areal density or "
+                                 "thickness; remove the key or set substrate = false",
+                                 where=t.where(key))
+            areal = None
+        else:
+            if has_n and has_nm:
+                raise InputError("give either areal_density_1e15 or thickness_nm, not both",
+                                 where=t.where("thickness_nm"))
+            if not (has_n or has_nm):
+                raise InputError("missing required key 'areal_density_1e15' (or thickness_nm with "
+                                 "density_g_cm3); or set substrate = true on the last layer",
+                                 where=t.where("areal_density_1e15"))
+            if has_n:
+                areal = t.number("areal_density_1e15", low=0.0, unit="1e15 atoms/cm2")
+            else:
+                thickness = t.number("thickness_nm", low=0.0, unit="nm")
+                if density is None:
+                    raise InputError("thickness_nm needs density_g_cm3 to give an areal density; "
+                                     "add density_g_cm3 or give areal_density_1e15 instead",
+                                     where=t.where("thickness_nm"))
+                probe = Layer(name, fractions, None, density, isotopes, False, formula)
+                areal = thickness * 1e-7 * probe.atoms_per_cm3 / 1e15
+        layers.append(Layer(name, fractions, areal, density, isotopes, substrate, formula))
+    return layers
+
+
+def _read_isotopes(t: _Table, fractions: dict) -> dict:
+    value = t.get("isotopes", {})
+    where = t.where("isotopes")
+    if not isinstance(value, dict):
+        raise InputError("expected a table such as { O = { 18 = 0.95, 16 = 0.05 } }, got "
+                         f"{_kind(value)}", where=where)
+    out: dict[str, dict[int, float]] = {}
+    for sym, table in value.items():
+        w = f"{where}.{sym}"
+        if sym not in fractions:
+            raise InputError(f"element {sym!r} is not in this layer's formula "
+                             f"({', '.join(fractions)}); isotope fractions apply to elements of "
+                             "the layer", where=w)
+        if not isinstance(table, dict) or not table:
+            raise InputError("expected a table of mass number = fraction, e.g. { 18 = 0.95, "
+                             f"16 = 0.05 }}, got {_kind(table)}", where=w)
+        parts: dict[int, float] = {}
+        for a_text, frac in table.items():
+            wa = f"{w}.{a_text}"
+            if not str(a_text).isdigit():
+                raise InputError(f"{a_text!r} is not a mass number; write whole numbers such as "
+                                 "18 = 0.95", where=wa)
+            a = int(a_text)
+            try:
+                isotope(sym, a)
+            except InputError as exc:
+                raise InputError(exc.message, where=wa) from None
+            if isinstance(frac, bool) or not isinstance(frac, (int, float)) or not 0.0 <= frac <= 1.0:
+                raise InputError(f"expected a fraction in [0, 1], got {_kind(frac)}", where=wa)
+            parts[a] = float(frac)
+        total = sum(parts.values())
+        if abs(total - 1.0) > 1e-3:
+            raise InputError(f"the isotope fractions of {sym} add up to {total:.4g}; they must sum "
+                             "to 1 (within 0.001)", where=w)
+        out[sym] = {a: f / total for a, f in parts.items()}
+    return out
+
+
+def _read_physics(source, top, layers: list[Layer], base_dir: Path) -> Physics:
+    t = _section(source, top, "physics",
+                 ("screening", "slice_fraction", "max_slice_1e15", "stopping_tables",
+                  "stopping_scale", "cross_section_ratio", "pileup"), required=False)
+    present = {sym for layer in layers for sym in layer.fractions}
+    screening = t.string("screening", "andersen", choices=SCREENING_CHOICES)
+    slice_fraction = t.number("slice_fraction", 0.25, low=0.0, high=1.0)
+    max_slice = t.number("max_slice_1e15", None, low=0.0, unit="1e15 atoms/cm2")
+
+    def per_element(key: str, kind: str):
+        value = t.get(key, {})
+        if not isinstance(value, dict):
+            raise InputError(f"expected a table such as {{ Si = ... }}, got {_kind(value)}",
+                             where=t.where(key))
+        out = {}
+        for sym, v in value.items():
+            w = f"{t.where(key)}.{sym}"
+            if sym not in present:
+                try:
+                    element(sym)
+                except InputError as exc:
+                    raise InputError(exc.message, where=w) from None
+                raise InputError(f"element {sym!r} is in no layer; elements of the sample: "
+                                 f"{', '.join(sorted(present))}", where=w)
+            if kind == "path":
+                if not isinstance(v, str) or not v:
+                    raise InputError(f"expected a file name in quotes, got {_kind(v)}", where=w)
+                p = Path(v)
+                p = p if p.is_absolute() else (base_dir / p)
+                if not p.is_file():
+                    raise InputError(f"file {v!r} not found (paths are relative to the run file's "
+                                     "folder)", where=w)
+                out[sym] = p
+            else:
+                if isinstance(v, bool) or not isinstance(v, (int, float)) or not (0.0 < v <= 10.0):
+                    raise InputError(f"expected a scale factor in (0, 10], got {_kind(v)}", where=w)
+                out[sym] = float(v)
+        return out
+
+    tables = per_element("stopping_tables", "path")
+    scale = per_element("stopping_scale", "number")
+    ratio = per_element("cross_section_ratio", "path")
+    pileup = Pileup()
+    if t.has("pileup"):
+        p = _Table(source, "physics.pileup", t.data["pileup"],
+                   ("enabled", "resolving_time_us", "count_rate_hz"))
+        enabled = p.boolean("enabled", False)
+        tau = p.number("resolving_time_us", 0.5, low=0.0, unit="microseconds")
+        if enabled and not p.has("count_rate_hz"):
+            raise InputError("missing required key 'count_rate_hz' (pulses per second at the "
+                             "detector) when pile-up is enabled", where=p.where("count_rate_hz"))
+        rate = p.number("count_rate_hz", 0.0, low=0.0, low_open=False, unit="Hz")
+        pileup = Pileup(enabled, tau, rate)
+        if enabled and pileup.probability >= 0.1:
+            raise InputError(f"count_rate_hz * resolving_time gives a pile-up probability of "
+                             f"{pileup.probability:.3g}; the first-order model holds only below 0.1",
+                             where=p.where("count_rate_hz"))
+    return Physics(screening, slice_fraction, max_slice, tables, scale, ratio, pileup)
+
