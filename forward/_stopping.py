@@ -609,7 +609,12 @@ def stopping(ion: str, target: str, energy_keV, *, nuclear: bool = True,
         eV/(1e15 atoms/cm2) per atom of the target (Bragg's rule for compounds).
     """
     model = StoppingModel(ion, tables=tables, scale=scale, nuclear=nuclear)
-    return model.mixture(parse_formula(target), energy_keV)
+    try:
+        _target(target)
+        fractions = {target: 1.0}
+    except (InputError, TypeError):
+        fractions = parse_formula(target)
+    return model.mixture(fractions, energy_keV)
 
 
 def check_stopping_range(energy_keV, ion: str = "4He") -> bool:
