@@ -138,7 +138,9 @@ def rutherford_cross_section(z1, m1, z2, m2, energy_keV, theta_deg, screening="a
             * [sqrt(1 - (m1/m2 sin theta)^2) + cos theta]^2 / sqrt(1 - (m1/m2 sin theta)^2)
 
     with ``E`` the laboratory energy and ``e^2 = e^2/(4 pi eps0)`` from scipy.constants.  As
-    ``m1/m2 -> 0`` it reduces to ``(Z1 Z2 e^2 / 4E)^2 / sin^4(theta/2)``.  For ``m1 >= m2`` the
+    ``m1/m2 -> 0`` it reduces to ``(Z1 Z2 e^2 / 4E)^2 / sin^4(theta/2)``.  Backward of 90 degrees
+    the equivalent form ``4 (1 - x^2)^2 / (sqrt(1 - x^2 sin^2) - cos)^2`` (``x = m1/m2``) replaces
+    ``4 [...]^2 / sin^4`` so that 180 degrees is computed without a 0/0.  For ``m1 >= m2`` the
     ``+`` branch is used and angles at or beyond the largest reachable angle raise ValueError.
     No ratio-to-Rutherford table is applied here; the spectrum model multiplies that in.
     """
@@ -155,10 +157,18 @@ def rutherford_cross_section(z1, m1, z2, m2, energy_keV, theta_deg, screening="a
 
     x = float(m1) / float(m2)
     t = np.radians(theta)
-    sin_t = np.sin(t)
+    sin_t, cos_t = np.sin(t), np.cos(t)
     root = np.sqrt(1.0 - (x * sin_t) ** 2)
+    # 4 (root + cos)^2 / sin^4 is 0/0 at 180 deg.  Backward of 90 deg (only reachable when
+    # m1 < m2) use the identity root + cos = (1 - x^2) sin^2 / (root - cos), which is exact and
+    # smooth up to 180 deg; forward of 90 deg keep the direct form (no cancellation there).
+    backward = cos_t < 0.0
+    safe_sin4 = np.where(backward, 1.0, sin_t**4)
+    angular = np.where(backward,
+                       4.0 * (1.0 - x * x) ** 2 / (root - cos_t) ** 2,
+                       4.0 * (root + cos_t) ** 2 / safe_sin4) / root
     prefactor = (float(z1) * float(z2) * E2_KEV_CM / (4.0 * energy)) ** 2  # cm2
-    sigma = prefactor * 4.0 / sin_t**4 * (root + np.cos(t)) ** 2 / root * _CM2_TO_MB
+    sigma = prefactor * angular * _CM2_TO_MB
     if screening is not None:
         sigma = sigma * screening_factor(z1, z2, energy, theta, m1, m2, model=screening)
     return _scalar_or_array(sigma, energy_keV, theta_deg)
