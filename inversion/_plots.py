@@ -1,0 +1,573 @@
+"""Figures of a result: spectrum fit, depth profile, corner plot and convergence.
+
+Each function takes either a result (a path to an HDF5 result file, or the
+:class:`~inversion._report.ReportData` read from one) or plain arrays given by keyword, draws one
+figure and returns it.  Options are keyword-only; ``fig=`` (or ``ax=``) draws into an existing
+figure so a second result can be overplotted; an unknown keyword raises TypeError, as Python
+does for any function without ``**kwargs``.  Array keywords override what the result holds.
+
+Credible bands are labelled with what they are: "68 % credible band" is the region between the
+16 % and 84 % posterior quantiles at each point, "95 % credible band" between 2.5 % and 97.5 %.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+
+from . import _style
+from ._style import figure_style
+
+import matplotlib.pyplot as plt  # noqa: E402  (after _style selects the Agg backend)
+from matplotlib.lines import Line2D  # noqa: E402
+from matplotlib.patches import Patch  # noqa: E402
+
+__all__ = [
+    "plot_spectrum",
+    "plot_profile",
+    "plot_corner",
+    "plot_convergence",
+    "deviance_residuals",
+    "autocorr_growth",
+]
+
+
+def _resolve(result):
+    """A ReportData from a path, a ReportData, or None."""
+    from ._report import ReportData, read_report_data
+
+    if result is None or isinstance(result, ReportData):
+        return result
+    if isinstance(result, (str, Path)):
+        return read_report_data(result)
+    raise TypeError(f"result must be a path to a result file or a ReportData, not "
+                    f"{type(result).__name__}")
+
+
+def _pick(explicit, result, attr):
+    if explicit is not None:
+        return explicit
+    if result is not None:
+        return getattr(result, attr)
+    return None
+
+
+def deviance_residuals(counts, expected) -> np.ndarray:
+    """Signed Poisson deviance residuals of measured counts against expected counts.
+
+    r = sign(n - mu) * sqrt(2 * (n ln(n / mu) - (n - mu))), with n ln(n / mu) = 0 at n = 0
+    (McCullagh and Nelder, Generalized Linear Models, 2nd ed., 1989, section 2.4.3).  Unlike
+    (n - mu) / sqrt(mu) they stay close to unit normal in channels with few counts.
+
+    Parameters
+    ----------
+    counts : array_like
+        Measured counts per channel (n >= 0).
+    expected : array_like
+        Expected counts per channel (mu); NaN is returned where mu <= 0.
+
+    Returns
+    -------
+    numpy.ndarray
+        One residual per channel.
+    """
+    from scipy.special import xlogy
+
+    n = np.asarray(counts, dtype=float)
+    mu = np.asarray(expected, dtype=float)
+    out = np.full(np.broadcast(n, mu).shape, np.nan)
+    ok = mu > 0
+    n_ok, mu_ok = np.broadcast_to(n, out.shape)[ok], np.broadcast_to(mu, out.shape)[ok]
+    dev = 2.0 * (xlogy(n_ok, n_ok) - xlogy(n_ok, mu_ok) - (n_ok - mu_ok))
+    out[ok] = np.sign(n_ok - mu_ok) * np.sqrt(np.clip(dev, 0.0, None))
+    return out
+
+
+def _monotone_map(x, y):
+    """Functions x -> y and y -> x through a table that increases in both, or None.
+
+    Between table points the map is linear interpolation; beyond the ends it continues the end
+    segments' slopes, so a secondary axis stays defined when the plot is padded or zoomed out.
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    if x.shape != y.shape or x.size < 2 or not (np.all(np.isfinite(x)) and
+                                                 np.all(np.isfinite(y))):
+        return None
+    if not (np.all(np.diff(x) > 0) and np.all(np.diff(y) > 0)):
+        return None
+    slope_lo = (y[1] - y[0]) / (x[1] - x[0])
+    slope_hi = (y[-1] - y[-2]) / (x[-1] - x[-2])
+
+    def forward(v):
+        v = np.asarray(v, dtype=float)
+        out = np.interp(v, x, y)
+        out = np.where(v < x[0], y[0] + (v - x[0]) * slope_lo, out)
+        return np.where(v > x[-1], y[-1] + (v - x[-1]) * slope_hi, out)
+
+    def inverse(v):
+        v = np.asarray(v, dtype=float)
+        out = np.interp(v, y, x)
+        out = np.where(v < y[0], x[0] + (v - y[0]) / slope_lo, out)
+        return np.where(v > y[-1], x[-1] + (v - y[-1]) / slope_hi, out)
+
+    return forward, inverse
+
+
+def _channel_to_energy(channel, channel_energy_keV, calibration):
+    """Functions channel -> keV and keV -> channel, or None when the file gives no energies."""
+    if calibration and channel is not None:
+        c = np.asarray(channel, dtype=float)
+        channel_energy_keV = (float(calibration.get("offset_keV", 0.0))
+                              + float(calibration["keV_per_channel"]) * c
+                              + float(calibration.get("quadratic_keV", 0.0)) * c * c)
+    if channel_energy_keV is not None and channel is not None:
+        return _monotone_map(channel, channel_energy_keV)
+    return None
+
+
+def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
+                  species_spectra=None, channel_energy_keV=None, calibration=None,
+                  log_counts=False, show_species=True, label=None, fig=None,
+                  figsize=(9.0, 5.6), title=None):
+    """Measured spectrum, posterior predictive bands, each species' contribution and residuals.
+
+    Parameters
+    ----------
+    result : str, pathlib.Path or ReportData, optional
+        A result file (or what :func:`~inversion._report.read_report_data` read from it).
+    channel : array_like, optional
+        Channel numbers (x axis).
+    counts : array_like, optional
+        Measured counts per channel.
+    predictive : array_like, shape (5, channels), optional
+        Posterior predictive 2.5, 16, 50, 84 and 97.5 % quantiles of the counts (Poisson noise
+        included).
+    species_spectra : dict of str to array_like, optional
+        Median model counts from each species, drawn as thin lines.
+    channel_energy_keV : array_like, optional
+        Energy of each channel (keV), for the energy axis on top.
+    calibration : dict, optional
+        ``{"offset_keV": a, "keV_per_channel": b, "quadratic_keV": q}``: the energy of channel
+        c is a + b c + q c**2 (q optional); used before ``channel_energy_keV``.
+    log_counts : bool, optional
+        Logarithmic counts axis.
+    show_species : bool, optional
+        Draw the per-species contributions.
+    label : str, optional
+        Prefix for the legend entries (useful when overplotting two results).
+    fig : matplotlib.figure.Figure, optional
+        A figure made by an earlier call, to overplot (its first two axes are reused).
+    figsize : tuple of float, optional
+        Figure size in inches, for a new figure.
+    title : str, optional
+        Title of the upper panel.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Upper panel: counts against channel (energy on the top axis when known).  Lower panel:
+        signed Poisson deviance residuals of the data against the predictive median.
+    """
+    data = _resolve(result)
+    channel = _pick(channel, data, "channel")
+    counts = _pick(counts, data, "counts")
+    predictive = _pick(predictive, data, "predictive")
+    species_spectra = _pick(species_spectra, data, "species_spectra") or {}
+    channel_energy_keV = _pick(channel_energy_keV, data, "channel_energy_keV")
+    calibration = _pick(calibration, data, "calibration") or {}
+    if counts is None or predictive is None:
+        raise ValueError("plot_spectrum needs counts and predictive (give a result or both "
+                         "arrays)")
+    counts = np.asarray(counts, dtype=float)
+    predictive = np.asarray(predictive, dtype=float)
+    if predictive.shape != (5, counts.size):
+        raise ValueError(f"predictive must have shape (5, {counts.size}), not "
+                         f"{predictive.shape}")
+    channel = np.arange(counts.size) if channel is None else np.asarray(channel, dtype=float)
+    prefix = f"{label}: " if label else ""
+
+    with figure_style():
+        if fig is None:
+            fig, (ax, axr) = plt.subplots(2, 1, figsize=figsize, sharex=True,
+                                          gridspec_kw={"height_ratios": [3.2, 1.0],
+                                                       "hspace": 0.06})
+            new = True
+        else:
+            if len(fig.axes) < 2:
+                raise ValueError("fig must come from an earlier plot_spectrum call (two panels)")
+            ax, axr = fig.axes[0], fig.axes[1]
+            new = False
+        colour = _style.MODEL_COLOUR if new else _style.PALETTE["orange"]
+        ax.fill_between(channel, predictive[0], predictive[4], step="mid", color=colour,
+                        alpha=_style.BAND_ALPHA_95, linewidth=0,
+                        label=f"{prefix}95 % predictive band")
+        ax.fill_between(channel, predictive[1], predictive[3], step="mid", color=colour,
+                        alpha=_style.BAND_ALPHA_68, linewidth=0,
+                        label=f"{prefix}68 % predictive band")
+        ax.plot(channel, predictive[2], drawstyle="steps-mid", color=colour, linewidth=1.3,
+                label=f"{prefix}predictive median")
+        if show_species:
+            colours = _style.species_colours(species_spectra)
+            for name, spec in species_spectra.items():
+                ax.plot(channel, np.asarray(spec, dtype=float), color=colours[name],
+                        linewidth=1.0, linestyle="--" if not new else "-",
+                        label=f"{prefix}{name} (median model)")
+        if new:
+            ax.plot(channel, counts, linestyle="none", marker="o", markersize=2.2,
+                    markeredgewidth=0, color=_style.DATA_COLOUR, label="measured counts",
+                    zorder=5)
+        ax.set_ylabel("counts per channel")
+        if log_counts:
+            ax.set_yscale("log")
+            ax.set_ylim(bottom=0.5)
+        else:
+            ax.set_ylim(bottom=0)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
+        if title and new:
+            ax.set_title(title, pad=28)
+
+        residual = deviance_residuals(counts, predictive[2])
+        axr.axhspan(-2, 2, color="#eeeeee", zorder=0, linewidth=0)
+        axr.axhline(0.0, color="#888888", linewidth=0.8)
+        axr.plot(channel, residual, linestyle="none", marker="o", markersize=2.0,
+                 markeredgewidth=0, color=_style.DATA_COLOUR if new else colour)
+        finite = residual[np.isfinite(residual)]
+        lim = max(3.5, float(np.max(np.abs(finite))) * 1.1) if finite.size else 3.5
+        axr.set_ylim(-lim, lim)
+        axr.set_ylabel("deviance\nresidual")
+        axr.set_xlabel("channel")
+        axr.set_xlim(channel[0] - 0.5, channel[-1] + 0.5)
+        if new:
+            axr.text(0.995, 0.04, "shaded: |residual| < 2", transform=axr.transAxes,
+                     ha="right", va="bottom", fontsize=7.5, color="#666666")
+            functions = _channel_to_energy(channel, channel_energy_keV, calibration)
+            if functions is not None:
+                top = ax.secondary_xaxis("top", functions=functions)
+                top.set_xlabel("energy (keV)")
+    return fig
+
+
+def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, depth_nm=None,
+                 species=None, show_best_fit=True, label=None, ax=None, figsize=(8.4, 4.6),
+                 title=None):
+    """Atom fraction of each species against depth, with 68 % and 95 % credible bands.
+
+    Parameters
+    ----------
+    result : str, pathlib.Path or ReportData, optional
+        A result file, or what was read from one.
+    depth_1e15 : array_like, optional
+        Depth of each slice centre, in 1e15 atoms/cm2.
+    bands : dict of str to array_like of shape (5, slices), optional
+        Per species: the 2.5, 16, 50, 84 and 97.5 % posterior quantiles of its atom fraction.
+    best_fit : dict of str to array_like, optional
+        Per species: the best-fit (maximum a posteriori) atom fraction.
+    depth_nm : array_like, optional
+        Depth of each slice centre in nm, where the layer densities allow; adds a top axis.
+    species : sequence of str, optional
+        Which species to draw (default all, in file order).
+    show_best_fit : bool, optional
+        Draw the best-fit profile as a thin dashed line.
+    label : str, optional
+        Prefix for the legend entries (when overplotting).
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw into (e.g. from an earlier call, to overplot another result).
+    figsize : tuple of float, optional
+        Figure size in inches, for a new figure.
+    title : str, optional
+        Axes title.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    data = _resolve(result)
+    depth_1e15 = _pick(depth_1e15, data, "depth_1e15")
+    bands = _pick(bands, data, "profile_bands")
+    best_fit = _pick(best_fit, data, "profile_map") or {}
+    depth_nm = _pick(depth_nm, data, "depth_nm")
+    if depth_1e15 is None or not bands:
+        raise ValueError("plot_profile needs depth_1e15 and bands (give a result or both)")
+    depth = np.asarray(depth_1e15, dtype=float)
+    names = list(bands) if species is None else list(species)
+    unknown = [s for s in names if s not in bands]
+    if unknown:
+        raise ValueError(f"no profile for species {unknown}; the result has {list(bands)}")
+    prefix = f"{label}: " if label else ""
+
+    with figure_style():
+        new = ax is None
+        if new:
+            fig, ax = plt.subplots(figsize=figsize)
+        else:
+            fig = ax.figure
+        colours = _style.species_colours(bands)
+        handles = []
+        for name in names:
+            q = np.asarray(bands[name], dtype=float)
+            if q.shape != (5, depth.size):
+                raise ValueError(f"profile of {name} must have shape (5, {depth.size}), not "
+                                 f"{q.shape}")
+            colour = colours[name]
+            ax.fill_between(depth, q[0], q[4], color=colour, alpha=_style.BAND_ALPHA_95,
+                            linewidth=0)
+            ax.fill_between(depth, q[1], q[3], color=colour, alpha=_style.BAND_ALPHA_68,
+                            linewidth=0)
+            ax.plot(depth, q[2], color=colour, linewidth=1.6)
+            handles.append(Line2D([], [], color=colour, linewidth=1.6, label=f"{prefix}{name}"))
+            if show_best_fit and name in best_fit:
+                ax.plot(depth, np.asarray(best_fit[name], dtype=float), color=colour,
+                        linewidth=0.9, linestyle=(0, (4, 2)))
+        grey = "#555555"
+        handles += [
+            Line2D([], [], color=grey, linewidth=1.6, label="posterior median"),
+            Patch(facecolor=grey, alpha=_style.BAND_ALPHA_68 + 0.1, linewidth=0,
+                  label="68 % credible band"),
+            Patch(facecolor=grey, alpha=_style.BAND_ALPHA_95, linewidth=0,
+                  label="95 % credible band"),
+        ]
+        if show_best_fit and any(n in best_fit for n in names):
+            handles.append(Line2D([], [], color=grey, linewidth=0.9, linestyle=(0, (4, 2)),
+                                  label="best fit (maximum posterior)"))
+        if new:
+            ax.set_xlabel(r"depth (10$^{15}$ atoms/cm$^2$)")
+            ax.set_ylabel("atom fraction")
+            ax.set_xlim(depth[0] if depth[0] <= 0 else 0.0, depth[-1])
+            ax.set_ylim(-0.02, 1.02)
+            functions = _monotone_map(depth, depth_nm) if depth_nm is not None else None
+            if functions is not None:
+                top = ax.secondary_xaxis("top", functions=functions)
+                top.set_xlabel("depth (nm, from the layer densities)")
+            if title:
+                ax.set_title(title)
+        ax.legend(handles=handles, loc="center left", bbox_to_anchor=(1.01, 0.5),
+                  borderaxespad=0)
+    return fig
+
+
+def _axis_label(name: str, unit: str) -> str:
+    """A quantity's axis label: the name, plus its unit unless the name's suffix says it."""
+    from ._report import unit_from_name
+
+    return name if (not unit or unit_from_name(name)) else f"{name} [{unit}]"
+
+
+def _corner_selection(data, max_quantities):
+    """Columns and labels for the corner plot: parameters, then thicknesses and widths.
+
+    A derived quantity identical, draw for draw, to one already chosen (a layer's areal density
+    stored again under /derived) is left out.
+    """
+    columns, labels = [], []
+    n = data.samples.shape[0]
+    for q in data.quantities:
+        if q.draws is None or q.draws.size != n:
+            continue
+        name = q.name.lower()
+        if q.kind == "derived" and not ("thickness" in name or "width" in name):
+            continue
+        if any(np.array_equal(q.draws, c) for c in columns):
+            continue
+        columns.append(q.draws)
+        labels.append(_axis_label(q.name, q.unit))
+    return columns[:max_quantities], labels[:max_quantities]
+
+
+def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bins=25,
+                colour=None, fig=None, figsize=None):
+    """Corner plot (one- and two-dimensional marginals) of the main quantities.
+
+    Drawn with the corner package (Foreman-Mackey, J. Open Source Softw. 1, 24, 2016).  Contours
+    enclose 68 % and 95 % of the two-dimensional posterior mass; dashed lines mark the 16, 50 and
+    84 % quantiles of each one-dimensional marginal.
+
+    Parameters
+    ----------
+    result : str, pathlib.Path or ReportData, optional
+        A result file: its sampled parameters and the derived thicknesses and interface widths.
+    samples : array_like, shape (draws, quantities), optional
+        Draws to plot instead of the result's.
+    labels : sequence of str, optional
+        Axis labels, one per column of ``samples``.
+    max_quantities : int, optional
+        At most this many quantities (the first ones) are drawn.
+    bins : int, optional
+        Histogram bins per axis.
+    colour : str, optional
+        Colour of the histograms and contours.
+    fig : matplotlib.figure.Figure, optional
+        A figure from an earlier call, to overplot.
+    figsize : tuple of float, optional
+        Figure size in inches (default 1.6 inch per quantity).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    import corner
+
+    data = _resolve(result)
+    if samples is None:
+        if data is None:
+            raise ValueError("plot_corner needs a result or samples")
+        columns, auto_labels = _corner_selection(data, max_quantities)
+        samples = np.column_stack(columns)
+        labels = auto_labels if labels is None else labels
+    samples = np.asarray(samples, dtype=float)
+    if samples.ndim == 1:
+        samples = samples[:, None]
+    samples = samples[:, :max_quantities]
+    if labels is not None:
+        labels = list(labels)[:samples.shape[1]]
+        if len(labels) != samples.shape[1]:
+            raise ValueError(f"{len(labels)} labels for {samples.shape[1]} quantities")
+    # a quantity that never moved (a fixed value stored as a draw) cannot be histogrammed
+    spread = np.ptp(samples, axis=0) > 0
+    if not spread.all():
+        samples = samples[:, spread]
+        labels = [lab for lab, keep in zip(labels, spread) if keep] if labels else None
+    k = samples.shape[1]
+    with figure_style():
+        if fig is None:
+            size = figsize or (max(3.2, 1.65 * k), max(3.2, 1.65 * k))
+            fig = plt.figure(figsize=size)
+        fig = corner.corner(
+            samples, labels=labels, bins=bins, fig=fig, color=colour or _style.MODEL_COLOUR,
+            quantiles=(0.16, 0.5, 0.84), levels=(0.68, 0.95), show_titles=True,
+            titles=[f"{lab}\n" for lab in labels] if labels else None,
+            title_fmt=".3g", title_kwargs={"fontsize": 7.5}, label_kwargs={"fontsize": 8},
+            plot_datapoints=False, fill_contours=True, smooth=1.0,
+            max_n_ticks=3, labelpad=0.08,
+        )
+        for axis in fig.axes:
+            axis.grid(False)
+            axis.tick_params(labelsize=7)
+        fig.text(0.98, 0.98, "contours: 68 % and 95 % credible regions\n"
+                             "dashed: 16, 50, 84 % quantiles\n"
+                             "titles: median and 68 % interval",
+                 ha="right", va="top", fontsize=8, color="#444444")
+    return fig
+
+
+def autocorr_growth(chain, *, n_points=12, min_steps=20):
+    """Integrated autocorrelation time estimated on growing prefixes of a chain.
+
+    Uses ``emcee.autocorr.integrated_time`` (Foreman-Mackey et al., PASP 125, 306, 2013, and the
+    emcee documentation) on the first N steps for N spaced geometrically up to the chain length.
+
+    Parameters
+    ----------
+    chain : array_like, shape (steps, walkers, parameters)
+        The stored chain.
+    n_points : int, optional
+        Number of prefix lengths.
+    min_steps : int, optional
+        Shortest prefix.
+
+    Returns
+    -------
+    steps : numpy.ndarray of int
+        Prefix lengths N.
+    tau : numpy.ndarray, shape (len(steps), parameters)
+        Estimated autocorrelation time (steps) of each parameter on each prefix.
+    """
+    from emcee.autocorr import integrated_time
+
+    chain = np.asarray(chain, dtype=float)
+    total = chain.shape[0]
+    start = min(max(min_steps, 4), total)
+    steps = np.unique(np.geomspace(start, total, n_points).astype(int))
+    tau = np.array([integrated_time(chain[:n], tol=0) for n in steps])
+    return steps, tau
+
+
+def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_points=12,
+                     fig=None, figsize=(8.5, 5.2)):
+    """Walker traces of the slowest parameters and the autocorrelation time against length.
+
+    The right panel shows the estimate of the integrated autocorrelation time on the first N
+    steps, with the line tau = N / 50: the estimate is trustworthy, and the chain long enough,
+    once the curves flatten and lie below that line (common practice, after the emcee
+    documentation's convergence guidance).
+
+    Parameters
+    ----------
+    result : str, pathlib.Path or ReportData, optional
+        A result file with an ``/mcmc`` chain.
+    chain : array_like, shape (steps, walkers, parameters), optional
+        Chain to draw instead of the result's.
+    names : sequence of str, optional
+        Parameter names (default: from the result, or p0, p1, ...).
+    max_traces : int, optional
+        How many parameters get a trace panel (those with the longest autocorrelation times).
+    n_points : int, optional
+        Number of prefix lengths for the autocorrelation curve.
+    fig : matplotlib.figure.Figure, optional
+        An empty figure to draw into.
+    figsize : tuple of float, optional
+        Figure size in inches, for a new figure.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    data = _resolve(result)
+    chain = _pick(chain, data, "chain")
+    if chain is None:
+        raise ValueError("plot_convergence needs a chain (give a result with /mcmc or chain=)")
+    chain = np.asarray(chain, dtype=float)
+    if chain.ndim != 3:
+        raise ValueError(f"chain must have shape (steps, walkers, parameters), not {chain.shape}")
+    n_steps, n_walkers, n_par = chain.shape
+    if names is None:
+        names = data.parameter_names if data is not None and data.parameter_names else \
+            [f"p{i}" for i in range(n_par)]
+    names = list(names)
+    steps, tau = autocorr_growth(chain, n_points=n_points)
+    order = np.argsort(-tau[-1])[:max(1, min(max_traces, n_par))]
+
+    with figure_style():
+        if fig is None:
+            fig = plt.figure(figsize=figsize)
+        grid = fig.add_gridspec(len(order), 2, width_ratios=[1.35, 1.0], wspace=0.32,
+                                hspace=0.12)
+        first = None
+        for row, j in enumerate(order):
+            axis = fig.add_subplot(grid[row, 0], sharex=first)
+            first = first or axis
+            axis.plot(np.arange(n_steps), chain[:, :, j], color=_style.MODEL_COLOUR,
+                      alpha=max(0.08, min(0.5, 6.0 / n_walkers)), linewidth=0.6,
+                      rasterized=True)
+            axis.text(0.01, 0.96, names[j], transform=axis.transAxes, ha="left", va="top",
+                      fontsize=8, bbox={"facecolor": "white", "edgecolor": "none",
+                                        "alpha": 0.8, "pad": 1.5})
+            axis.tick_params(labelsize=7.5)
+            if row < len(order) - 1:
+                axis.tick_params(labelbottom=False)
+            else:
+                axis.set_xlabel("step")
+            if row == 0:
+                axis.set_title(f"walker traces ({n_walkers} walkers; slowest parameters)",
+                               fontsize=9.5)
+        axt = fig.add_subplot(grid[:, 1])
+        for k, j in enumerate(order):
+            axt.plot(steps, tau[:, j], marker="o", markersize=3,
+                     color=_style.species_colour(k), label=f"{names[j]}")
+        if n_par > len(order):
+            axt.plot(steps, tau.mean(axis=1), color="#777777", linestyle=":",
+                     label="mean of all parameters")
+        line = np.array([steps[0], steps[-1]], dtype=float)
+        axt.plot(line, line / 50.0, color="black", linestyle="--", linewidth=1.0,
+                 label="N / 50")
+        axt.set_xscale("log")
+        axt.set_yscale("log")
+        axt.set_xlabel("chain length N (steps)")
+        axt.set_ylabel("autocorrelation time estimate (steps)")
+        axt.set_title("autocorrelation time on the first N steps", fontsize=9.5)
+        axt.legend(loc="upper left", fontsize=7.5)
+        if not math.isfinite(float(np.max(tau))):
+            axt.text(0.5, 0.5, "estimate undefined", transform=axt.transAxes, ha="center")
+    return fig
