@@ -61,6 +61,11 @@ _B4 = (5179 / 57600, 0.0, 7571 / 16695, 393 / 640, -92097 / 339200, 187 / 2100, 
 _E = tuple(b5 - b4 for b5, b4 in zip(_B5, _B4))
 
 _MAX_STEPS = 20000          # per call; a smooth stopping curve needs a few tens
+#: Smallest local error allowed in one step, as a fraction of the tolerance.  Where the stopping
+#: function jumps (e.g. where a model switches between two fitted forms) the local error falls
+#: only like h, as does the relative allowance; the floor lets the step shrink across the jump
+#: and pass, at a cost of at most this fraction of the tolerance per such step.
+_ERROR_FLOOR = 1e-3
 _SAFETY = 0.9
 _MIN_FACTOR, _MAX_FACTOR = 0.2, 5.0
 
@@ -71,8 +76,9 @@ def _dopri_integrate(rhs, y0, length, energy_tol_keV, variance_rtol=1e-7,
 
     Row 0 of ``y`` is the energy in keV; an optional row 1 is an energy variance in keV^2.
     Each column has its own adaptive step.  The local error allowed in a step is
-    ``energy_tol_keV * max(h / length, |dE| / E_start)``, which adds up to at most
-    ``2 * energy_tol_keV`` over the whole path whether the ion crosses it or stops in it; the
+    ``energy_tol_keV * max(h / length, |dE| / E_start, 1e-3)``; the first two terms add up to at
+    most ``2 * energy_tol_keV`` over the whole path whether the ion crosses it or stops in it,
+    and the floor only matters across a jump in the stopping function (``_ERROR_FLOOR``); the
     order-5 solution is kept (local extrapolation), so the true error is usually far smaller.
     An ion whose energy falls below ``energy_tol_keV`` is stopped: energy and variance are set
     to exactly 0 (the true final energy lies between 0 and the current one, so this is within
@@ -118,7 +124,8 @@ def _dopri_integrate(rhs, y0, length, energy_tol_keV, variance_rtol=1e-7,
         bad |= ~(y5[0] > 0.0)
 
         loss = np.abs(y5[0] - yi[0])
-        allowed_e = energy_tol_keV * np.maximum(hi / length[idx], loss / e_start[idx])
+        allowed_e = energy_tol_keV * np.maximum(np.maximum(hi / length[idx], loss / e_start[idx]),
+                                                _ERROR_FLOOR)
         ratio = np.abs(err[0]) / np.maximum(allowed_e, 1e-300)
         if nrow > 1:
             allowed_v = variance_rtol * np.maximum(np.abs(y5[1]), np.abs(yi[1])) + variance_atol_keV2

@@ -161,7 +161,8 @@ def straggling_rate(z1, m1, fractions: Mapping[str, float], energy_keV, *,
     m1 : float
         Ion mass, u.
     fractions : mapping of str to float
-        ``{symbol: atom fraction}``, fractions >= 0 summing to 1.
+        ``{symbol: atom fraction}``, fractions >= 0; normalised to sum 1 (as in
+        :meth:`forward._stopping.StoppingModel.mixture`).
     energy_keV : float or array_like
         Ion energy, keV (>= 0).
     correction : {"lindhard-scharff", "none"}, optional
@@ -179,14 +180,18 @@ def straggling_rate(z1, m1, fractions: Mapping[str, float], energy_keV, *,
     if not isinstance(fractions, Mapping) or not fractions:
         raise InputError("fractions must be a non-empty {symbol: atom fraction} mapping, e.g. "
                          "{'Si': 1/3, 'O': 2/3}", where=f"{func}: fractions")
-    values = np.array([float(v) for v in fractions.values()])
-    if not np.all(np.isfinite(values) & (values >= 0.0)) or abs(values.sum() - 1.0) > 1e-6:
-        raise InputError(f"atom fractions must be >= 0 and sum to 1; got {dict(fractions)!r}",
-                         where=f"{func}: fractions")
+    try:
+        values = np.array([float(v) for v in fractions.values()])
+    except (TypeError, ValueError):
+        values = np.array([np.nan])
+    if not np.all(np.isfinite(values) & (values >= 0.0)) or not values.sum() > 0.0:
+        raise InputError(f"atom fractions must be finite, >= 0 and not all 0; got "
+                         f"{dict(fractions)!r}", where=f"{func}: fractions")
+    total = float(values.sum())
     m1 = float(_check_array(m1, "m1", func))
     energy = _check_array(energy_keV, "energy_keV", func)
     rate = np.zeros(energy.shape)
-    for symbol, frac in fractions.items():
+    for symbol, frac in zip(fractions, values / total):
         if frac == 0.0:
             continue
         z2 = element(symbol).z
