@@ -23,6 +23,7 @@ _EXPORTS = {
     "parse_formula": "._elements",
     # one scattering event
     "kinematic_factor": "._kinematics",
+    "max_scattering_angle_deg": "._kinematics",
     "rutherford_cross_section": "._cross_section",
     "screening_factor": "._cross_section",
     "non_rutherford_onset_keV": "._cross_section",
