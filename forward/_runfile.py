@@ -520,7 +520,8 @@ class _Table:
         self.data = value
         unknown = [k for k in value if k not in allowed]
         if unknown:
-            raise InputError(f"unknown key {unknown[0]!r} in [{name}]; allowed keys: "
+            place = f"[{name}]" if name else "the run file's top level"
+            raise InputError(f"unknown key {unknown[0]!r} in {place}; allowed keys: "
                              f"{', '.join(allowed)}", where=self.where(unknown[0]))
 
     def where_root(self) -> str:
@@ -535,7 +536,8 @@ class _Table:
     def get(self, key: str, default=_MISSING):
         if key not in self.data:
             if default is _MISSING:
-                raise InputError(f"missing required key {key!r} in [{self.name}]", where=self.where(key))
+                place = f"[{self.name}]" if self.name else "the run file's top level"
+                raise InputError(f"missing required key {key!r} in {place}", where=self.where(key))
             return default
         return self.data[key]
 

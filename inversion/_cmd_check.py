@@ -107,46 +107,51 @@ def _exit_energy(forward, run_, model, index: int, energy_keV: float) -> float:
     return e
 
 
-def find_leading_edge(counts: np.ndarray, channel: np.ndarray, smooth_channels: int,
+def find_leading_edge(counts: np.ndarray, channel: np.ndarray, edge_width_channels: float,
                       threshold_fraction: float = 0.1) -> float | None:
-    """Channel of the highest-energy edge seen in a spectrum.
+    """Position of the highest-energy edge seen in a spectrum, in channels.
 
-    The counts are smoothed with a running mean; the edge region is the highest channel whose
-    smoothed counts reach ``threshold_fraction`` of the largest smoothed value; the local
-    plateau is the largest smoothed value within three smoothing widths below that channel, and
-    the edge is where the smoothed counts cross half of that plateau (linear interpolation).
-    A thin top layer whose peak is lower than a thick substrate's plateau is still found, as
-    long as its peak reaches ``threshold_fraction`` of the highest level.
+    The counts are smoothed with a running mean about one edge width wide (odd, so the edge
+    does not move); the edge region is the highest channel whose smoothed counts reach
+    ``threshold_fraction`` of the largest smoothed value; the local plateau is the largest
+    smoothed value within ``3 * width + 10`` channels below it; the edge is where the smoothed
+    counts cross half of that plateau, interpolated linearly.  A thin top layer whose peak is
+    lower than a thick substrate's plateau is still found, as long as its peak reaches
+    ``threshold_fraction`` of the highest level.
 
     Parameters
     ----------
     counts, channel : numpy arrays
         The spectrum (channels strictly increasing).
-    smooth_channels : int
-        Width of the running mean, in channels (at least 1).
+    edge_width_channels : float
+        Width of a sharp edge after the detector, in channels (the FWHM in channels).
     threshold_fraction : float
         Fraction of the highest smoothed level that marks the edge region.
 
     Returns
     -------
     float or None
-        The fractional channel of the half-height crossing, or None without counts.
+        The half-height crossing on the calibration's channel scale (channel ``c`` spans
+        ``[c, c + 1)`` and its counts are placed at ``c + 0.5``), comparable with
+        ``Calibration.channel_of``; None for a spectrum without counts.
     """
     counts = np.asarray(counts, float)
     channel = np.asarray(channel, float)
     if counts.size == 0 or not np.any(counts > 0):
         return None
-    w = max(1, min(int(smooth_channels), counts.size))
+    w = max(1, min(int(round(edge_width_channels)), counts.size))
+    w = w if w % 2 else max(1, w - 1)
     smooth = np.convolve(counts, np.ones(w) / w, mode="same")
     region = np.flatnonzero(smooth >= threshold_fraction * np.max(smooth))
     top = int(region[-1])
-    low = max(0, top - 3 * w)
+    low = max(0, top - (3 * w + 10))
     half = 0.5 * np.max(smooth[low:top + 1])
     i = int(low + np.flatnonzero(smooth[low:top + 1] >= half)[-1])
+    position = channel[i]
     if i + 1 < smooth.size and smooth[i] != smooth[i + 1]:
         frac = min(1.0, max(0.0, (smooth[i] - half) / (smooth[i] - smooth[i + 1])))
-        return float(channel[i] + frac * (channel[i + 1] - channel[i]))
-    return float(channel[i])
+        position = channel[i] + frac * (channel[i + 1] - channel[i])
+    return float(position) + 0.5
 
 
 def check_report(run_, spectrum=None) -> str:
@@ -206,9 +211,8 @@ def _report_lines(forward, run_, spectrum):
         lines.append(f"title      {run_.title}")
     lines.append("")
     lines.append("Set-up")
-    layout = {"direct": "angles given directly",
-              "IBM": f"IBM layout, tilt {g.tilt_deg:g} deg",
-              "Cornell": f"Cornell layout, tilt {g.tilt_deg:g} deg"}[g.layout]
+    layout = ("angles given directly" if g.layout == "direct"
+              else f"{g.layout} layout, tilt {g.tilt_deg:g} deg")
     setup = [
         ("beam", f"{beam.species} ({m1:.4f} u) at {e0:g} keV"),
         ("scattering angle", f"{g.scattering_deg:.2f} deg"),
@@ -358,8 +362,7 @@ def _report_lines(forward, run_, spectrum):
                              "calibration.keV_per_channel and offset_keV")
             else:
                 lines.append("  coverage: yes, the spectrum reaches the highest edge")
-            width = max(3, int(round(det.fwhm_keV / cal.keV_per_channel)))
-            found = find_leading_edge(spectrum.counts, ch, width)
+            found = find_leading_edge(spectrum.counts, ch, det.fwhm_keV / cal.keV_per_channel)
             if found is None:
                 lines.append("  leading edge: the spectrum holds no counts")
                 notes.append("the spectrum holds no counts")
