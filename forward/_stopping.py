@@ -567,6 +567,7 @@ class StoppingModel:
             raise InputError("empty composition; give at least one element with a fraction > 0")
         items = []
         for symbol, f in fractions.items():
+            _target(symbol)  # unknown symbols are an error even at fraction 0
             try:
                 value = float(f)
             except (TypeError, ValueError):
