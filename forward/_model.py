@@ -1,0 +1,614 @@
+"""The spectrum model: a run file's experiment turned into plain arrays for the numba kernel.
+
+:class:`ForwardModel` is built once per run.  It decides the species (element symbols, or
+``"O[18]"`` for a layer whose isotopes the run file overrides), the fixed slice grid, and the
+per-element and per-isotope tables on one uniform energy grid; then
+:meth:`ForwardModel.expected_counts` evaluates the kernel of :mod:`forward._kernel` on a
+``(n_slices, n_species)`` table of atom fractions with the calibration, resolution, fluence and
+stopping scales of a :class:`Nuisance`.
+
+Tables
+------
+All tables share one energy grid, from ``TABLE_FLOOR_KEV`` (10 keV) to 1.1 times the beam
+energy in steps of ``table_step_keV`` (default 2 keV):
+
+* per element: stopping ``S`` (keV per 1e15 atoms/cm2; electronic + nuclear, from
+  :class:`forward.StoppingModel`), ``dS/dE`` and ``d2S/dE2`` (central differences of the
+  stopping function, not of the table), the straggling rate ``W`` of
+  :func:`forward._straggling.straggling_rate` and ``dW/dE``;
+* per isotope: ``E^2 sigma(E)`` (keV^2 mb/sr), with ``sigma`` from
+  :func:`forward.rutherford_cross_section` times the run's ratio-to-Rutherford table if any.
+  ``E^2 sigma`` is nearly constant (Rutherford's ``1/E^2`` taken out), so linear interpolation
+  on a 2 keV grid is accurate to better than 1e-6 relative.
+
+The kernel interpolates ``S`` with cubic Hermite polynomials (values and ``dS/dE``), the rest
+linearly.  ``tests/test_model.py`` bounds these interpolation errors against the direct formulas.
+
+Slice grid
+----------
+From the surface down, each slice is as thick as lets the ion lose at most ``slice_fraction``
+(default 0.25, from ``[physics]``) of the detector FWHM in it, in and out, for the nominal
+sample: ``width = slice_fraction * FWHM / max_iso [eps]`` with the stopping cross-section factor
+``[eps] = K S(E)/cos th1 + S(K E)/cos th2`` of the most demanding isotope at that depth,
+capped by ``max_slice_1e15``; slices are cut at the run file's layer boundaries.  A substrate's
+grid runs down to where a particle scattered by the heaviest isotope would be detected below the
+lowest characteristic (well below the lowest channel; the substrate signal trails down to low
+energy, common practice), plus 20 % in depth so that smaller stopping scales are still covered;
+a sample without substrate ends at its last layer.  Either is extended to ``depth_limit_1e15``
+if that is deeper (rows below a sample without substrate are vacuum).
+
+Pile-up
+-------
+Off unless ``[physics.pileup]`` enables it.  First order: each event, with probability
+``p = rate * tau``, arrives together with another and the two are recorded as one pulse at the
+summed energy.  The result is ``(1 - p) S + (p N / 2) (s * s)`` with ``S`` the single-event
+spectrum, ``N`` its total and ``s * s`` the self-convolution of the normalised spectrum (the
+summed energy uses the linear part of the calibration).  Per-species rows hold the single
+events only, ``(1 - p) S_species``.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field, fields
+
+import numpy as np
+
+from ._cross_section import load_ratio_table, rutherford_cross_section
+from ._elements import element
+from ._errors import InputError
+from ._kernel import BROADENING_HALF_WIDTH, broadening_table, spectrum_kernel
+from ._kinematics import kinematic_factor
+from ._stopping import StoppingModel
+from ._straggling import straggling_rate
+
+__all__ = ["ForwardModel", "Nuisance", "SliceGrid", "SpeciesInfo", "TABLE_FLOOR_KEV",
+           "FWHM_TO_SIGMA"]
+
+#: Lowest energy of the tables and of the ions followed, keV.
+TABLE_FLOOR_KEV = 10.0
+#: Standard deviation of a Gaussian over its FWHM: 1 / (2 sqrt(2 ln 2)) = 1 / 2.3548.
+FWHM_TO_SIGMA = 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+#: Depth margin of a substrate's grid beyond the nominal detection limit (see module notes).
+_SUBSTRATE_DEPTH_MARGIN = 1.2
+#: Smallest resolution used to size slices when the detector FWHM is tiny, keV.
+_MIN_SIZING_FWHM_KEV = 1.0
+
+
+@dataclass(frozen=True)
+class SliceGrid:
+    """The fixed depth grid: ``edges_1e15`` (n+1), ``centres_1e15`` and ``widths_1e15`` (n).
+
+    Depths along the sample normal in 1e15 atoms/cm2, from the surface (0) down.
+    """
+
+    edges_1e15: np.ndarray
+    centres_1e15: np.ndarray
+    widths_1e15: np.ndarray
+
+    @classmethod
+    def from_edges(cls, edges_1e15) -> "SliceGrid":
+        edges = np.asarray(edges_1e15, dtype=float)
+        return cls(edges, 0.5 * (edges[1:] + edges[:-1]), np.diff(edges))
+
+    def __len__(self) -> int:
+        return int(self.widths_1e15.size)
+
+
+@dataclass
+class Nuisance:
+    """Experimental parameters the posterior may free, beside the depth profile.
+
+    Attributes
+    ----------
+    fluence_scale : float
+        Multiplies the number of incident ions times the solid angle (1 = as in the run file).
+    gain_keV : float
+        keV per channel.
+    offset_keV : float
+        Energy of the lower edge of channel 0, keV.
+    quadratic_keV : float
+        keV per channel squared.
+    fwhm_keV : float
+        Detector resolution (FWHM), keV; 0 switches the detector term off.
+    stopping_scale : numpy.ndarray
+        One factor per element of :attr:`ForwardModel.elements`, multiplying its stopping.
+    """
+
+    fluence_scale: float = 1.0
+    gain_keV: float = 1.0
+    offset_keV: float = 0.0
+    quadratic_keV: float = 0.0
+    fwhm_keV: float = 15.0
+    stopping_scale: np.ndarray = field(default_factory=lambda: np.ones(0))
+
+    def __post_init__(self):
+        self.stopping_scale = np.atleast_1d(np.asarray(self.stopping_scale, dtype=float))
+
+    def to_array(self) -> np.ndarray:
+        """``[fluence_scale, gain, offset, quadratic, fwhm, *stopping_scale]`` as float64."""
+        head = [self.fluence_scale, self.gain_keV, self.offset_keV, self.quadratic_keV,
+                self.fwhm_keV]
+        return np.concatenate([np.asarray(head, dtype=float), self.stopping_scale])
+
+    @classmethod
+    def from_array(cls, values) -> "Nuisance":
+        """Inverse of :meth:`to_array`."""
+        v = np.asarray(values, dtype=float)
+        if v.ndim != 1 or v.size < 5:
+            raise ValueError(f"a nuisance array has at least 5 values, got shape {v.shape}")
+        return cls(float(v[0]), float(v[1]), float(v[2]), float(v[3]), float(v[4]), v[5:].copy())
+
+    @staticmethod
+    def array_names(elements) -> list[str]:
+        """Names of the entries of :meth:`to_array` for the given element symbols."""
+        head = [f.name for f in fields(Nuisance)][:5]
+        return head + [f"stopping_scale_{sym}" for sym in elements]
+
+
+@dataclass(frozen=True)
+class SpeciesInfo:
+    """One column of the fraction table: an element with natural or overridden isotopes."""
+
+    label: str
+    symbol: str
+    isotopes: tuple  # ((mass_number, mass_u, fraction), ...)
+
+
+def _species_of(layer) -> dict[str, SpeciesInfo]:
+    """Species of each element of one layer, keyed by element symbol."""
+    out = {}
+    for sym in layer.fractions:
+        parts = tuple((iso.mass_number, iso.mass_u, float(f))
+                      for iso, f in layer.isotope_fractions(sym))
+        if sym in layer.isotopes:
+            main = max(parts, key=lambda p: p[2])[0]
+            label = f"{sym}[{main}]"
+        else:
+            label = sym
+        out[sym] = SpeciesInfo(label, sym, parts)
+    return out
+
+
+class ForwardModel:
+    """Expected RBS spectrum of a run's experiment for any composition table on a fixed grid.
+
+    Parameters
+    ----------
+    run : forward.Run
+        The experiment (from :func:`forward.load_run`).
+    n_channels : int, optional
+        Number of channels; default enough to hold 1.05 times the highest surface edge.
+    depth_limit_1e15 : float, optional
+        Extend the grid to at least this depth (1e15 atoms/cm2), e.g. the deepest interface a
+        prior allows.
+    straggling : bool, optional
+        Include energy straggling (default True).  False is for tests of the textbook limits.
+    table_step_keV : float, optional
+        Step of the energy grid of the tables (default 2 keV).
+    particle_step_keV : float, optional
+        Spacing of the detected energies followed into the sample (default 20 keV).
+
+    Attributes
+    ----------
+    species : tuple of str
+    elements : tuple of str
+    species_element : numpy.ndarray of int
+    grid : SliceGrid
+    n_channels : int
+    """
+
+    def __init__(self, run, n_channels: int | None = None, depth_limit_1e15: float | None = None,
+                 *, straggling: bool = True, table_step_keV: float = 2.0,
+                 particle_step_keV: float = 20.0):
+        self.run = run
+        src = run.source
+        if n_channels is not None and (int(n_channels) != n_channels or n_channels < 1):
+            raise InputError(f"n_channels={n_channels!r}; give a whole number >= 1",
+                             where=f"{src}: n_channels")
+        if depth_limit_1e15 is not None and not (np.isfinite(depth_limit_1e15)
+                                                 and depth_limit_1e15 >= 0):
+            raise InputError(f"depth_limit_1e15={depth_limit_1e15!r}; give a depth >= 0 in "
+                             "1e15 atoms/cm2", where=f"{src}: depth_limit_1e15")
+        if not (table_step_keV > 0 and particle_step_keV > 0):
+            raise InputError("table_step_keV and particle_step_keV must be > 0",
+                             where=f"{src}: physics")
+        self.straggling = bool(straggling)
+        self.table_step_keV = float(table_step_keV)
+        self.particle_step_keV = float(particle_step_keV)
+        beam = run.beam
+        self.energy_keV = float(beam.energy_keV)
+        self._z1, self._m1 = beam.ion.z, beam.ion.mass_u
+        geo = run.geometry
+        self.theta_deg = float(geo.scattering_deg)
+        self.inv_cos_in = 1.0 / math.cos(math.radians(geo.incidence_deg))
+        self.inv_cos_out = 1.0 / math.cos(math.radians(geo.exit_deg))
+
+        # species and elements
+        self._layer_species: list[dict[str, SpeciesInfo]] = []
+        species: dict[str, SpeciesInfo] = {}
+        for i, layer in enumerate(run.layers, start=1):
+            per = _species_of(layer)
+            for sym, info in per.items():
+                label = info.label
+                if label in species and species[label].isotopes != info.isotopes:
+                    n = 2
+                    while f"{label}#{n}" in species and species[f"{label}#{n}"].isotopes != info.isotopes:
+                        n += 1
+                    label = f"{label}#{n}"
+                    info = SpeciesInfo(label, sym, info.isotopes)
+                    per[sym] = info
+                species.setdefault(label, info)
+            self._layer_species.append(per)
+        self._species_info = tuple(species.values())
+        self.species = tuple(species)
+        self.elements = tuple(run.elements)
+        self.species_element = np.array([self.elements.index(s.symbol)
+                                         for s in self._species_info], dtype=np.int64)
+
+        self._build_tables()
+        self._ftab, self._fder = broadening_table()
+        self._du = 1.0 / 64.0
+        self.grid = self._build_grid(depth_limit_1e15)
+        if n_channels is None:
+            top = 1.05 * float(np.max(self._iso_k)) * self.energy_keV if self._iso_k.size \
+                else 1.05 * self.energy_keV
+            n_channels = int(math.ceil(run.calibration.channel_of(top)))
+            if not (1 <= n_channels <= 65536):
+                raise InputError(f"the calibration puts the highest surface edge ({top:.1f} keV) "
+                                 f"at channel {n_channels}; check keV_per_channel and offset_keV",
+                                 where=f"{src}: calibration")
+        self.n_channels = int(n_channels)
+        self._empty_record = np.zeros((0, 0, 3))
+
+    # ------------------------------------------------------------------------------------------
+    # tables
+    def _build_tables(self):
+        run = self.run
+        phys = run.physics
+        e_top = 1.1 * self.energy_keV
+        n_tab = int(math.ceil((e_top - TABLE_FLOOR_KEV) / self.table_step_keV)) + 1
+        self.table_energy_keV = TABLE_FLOOR_KEV + self.table_step_keV * np.arange(n_tab)
+        e = self.table_energy_keV
+        stop = StoppingModel(run.beam.species, tables=dict(phys.stopping_tables))
+        self._stopping_model = stop
+        n_el = len(self.elements)
+        S = np.zeros((n_el, n_tab))
+        dS = np.zeros((n_el, n_tab))
+        d2S = np.zeros((n_el, n_tab))
+        W = np.zeros((n_el, n_tab))
+        dW = np.zeros((n_el, n_tab))
+        h = 0.25  # keV, central-difference step
+        with warnings.catch_warnings():
+            # the tables reach below the stopping formulas' fitted range so that the
+            # substrate signal can trail off to the lowest channel
+            warnings.simplefilter("ignore")
+            for i, sym in enumerate(self.elements):
+                f = lambda x: np.asarray(stop.element(sym, x), dtype=float) / 1000.0  # noqa: E731
+                s_mid, s_hi, s_lo = f(e), f(e + h), f(e - h)
+                S[i], dS[i] = s_mid, (s_hi - s_lo) / (2 * h)
+                d2S[i] = (s_hi - 2 * s_mid + s_lo) / (h * h)
+                if self.straggling:
+                    r = lambda x: np.asarray(straggling_rate(self._z1, self._m1, {sym: 1.0}, x))  # noqa: E731
+                    W[i], dW[i] = r(e), (r(e + h) - r(e - h)) / (2 * h)
+        self._S, self._dS, self._d2S, self._W, self._dW = S, dS, d2S, W, dW
+
+        screening = None if phys.screening == "none" else phys.screening
+        ratios = {sym: load_ratio_table(path) for sym, path in phys.cross_section_ratio.items()}
+        for sym, table in ratios.items():
+            lo, hi = table.energy_range_keV
+            if hi < self.energy_keV:
+                raise InputError(f"the ratio-to-Rutherford table for {sym} ends at {hi:g} keV, "
+                                 f"below the beam energy {self.energy_keV:g} keV; it must cover "
+                                 "the beam energy", where=f"{run.source}: physics.cross_section_ratio.{sym}")
+        iso_species, iso_k, iso_w, e2s, iso_labels = [], [], [], [], []
+        for sp, info in enumerate(self._species_info):
+            el = element(info.symbol)
+            for a, mass, frac in info.isotopes:
+                if frac <= 0:
+                    continue
+                try:
+                    k = kinematic_factor(self._m1, mass, self.theta_deg)
+                    sigma = rutherford_cross_section(self._z1, self._m1, el.z, mass, e,
+                                                     self.theta_deg, screening=screening)
+                except ValueError:
+                    # a target lighter than the beam cannot scatter it backwards: stopping only
+                    continue
+                sigma = np.asarray(sigma, dtype=float)
+                if info.symbol in ratios:
+                    t = ratios[info.symbol]
+                    lo, hi = t.energy_range_keV
+                    # below the table the cross-section is taken as Rutherford
+                    sigma = sigma * np.where(e < lo, 1.0,
+                                             np.interp(e, t.energy_keV, t.ratio))
+                iso_species.append(sp)
+                iso_k.append(k)
+                iso_w.append(frac)
+                e2s.append(e * e * sigma)
+                iso_labels.append(f"{a}{info.symbol}")
+        self._iso_species = np.array(iso_species, dtype=np.int64)
+        self._iso_k = np.array(iso_k, dtype=float)
+        self._iso_weight = np.array(iso_w, dtype=float)
+        self._e2sigma = np.array(e2s, dtype=float).reshape(len(iso_k), n_tab)
+        self.isotope_labels = tuple(iso_labels)
+
+    # ------------------------------------------------------------------------------------------
+    # grid
+    def _element_fractions(self, layer) -> np.ndarray:
+        c = np.zeros(len(self.elements))
+        for sym, f in layer.fractions.items():
+            c[self.elements.index(sym)] += f
+        return c
+
+    def _mix_stopping(self, comp, energy, scale):
+        """Bragg-rule stopping (keV per 1e15) of element fractions ``comp`` at ``energy``."""
+        out = np.zeros_like(np.asarray(energy, dtype=float))
+        for i, c in enumerate(comp):
+            if c > 0:
+                out = out + c * scale[i] * np.interp(energy, self.table_energy_keV, self._S[i])
+        return out
+
+    def _build_grid(self, depth_limit_1e15):
+        run = self.run
+        layers = run.layers
+        tops = [0.0]
+        for layer in layers:
+            if layer.areal_density_1e15 is not None:
+                tops.append(tops[-1] + float(layer.areal_density_1e15))
+        has_substrate = bool(layers[-1].substrate)
+        film_total = tops[-1]
+        comps = [self._element_fractions(layer) for layer in layers]
+        scale = self.default_nuisance().stopping_scale
+        fwhm = max(float(run.detector.fwhm_keV), _MIN_SIZING_FWHM_KEV)
+        max_slice = run.physics.max_slice_1e15
+        frac = float(run.physics.slice_fraction)
+        k_all = self._iso_k
+        # isotopes present in each layer
+        present = []
+        for per in self._layer_species:
+            labels = {info.label for info in per.values()}
+            present.append(np.array([self.species[s] in labels for s in self._iso_species]))
+        limit = 0.0 if depth_limit_1e15 is None else float(depth_limit_1e15)
+        cal = run.calibration
+        sigma_det = run.detector.fwhm_keV * FWHM_TO_SIGMA
+        d0 = max(TABLE_FLOOR_KEV, cal.energy_keV(0.0) - BROADENING_HALF_WIDTH * sigma_det - 150.0)
+        hard_end = film_total if not has_substrate else math.inf
+        hard_end = max(hard_end, limit)
+
+        edges = [0.0]
+        e_in = [self.energy_keV]
+        layer_of = []
+        z, energy = 0.0, self.energy_keV
+        while z < hard_end * (1 - 1e-12) and energy > max(d0, TABLE_FLOOR_KEV) and len(edges) < 200000:
+            li = int(np.searchsorted(tops, z, side="right")) - 1
+            if li >= len(layers):
+                li = None  # vacuum below a sample without substrate
+            if li is None:
+                width = max_slice if max_slice else max(hard_end - z, 1e-9)
+                width = min(width, hard_end - z)
+                edges.append(z + width)
+                e_in.append(energy)
+                layer_of.append(-1)
+                z += width
+                continue
+            comp = comps[li]
+            ks = k_all[present[li]] if k_all.size and present[li].any() else np.array([1.0])
+            s_in = float(self._mix_stopping(comp, energy, scale))
+            s_out = self._mix_stopping(comp, ks * energy, scale)
+            eps = float(np.max(ks * s_in * self.inv_cos_in + s_out * self.inv_cos_out))
+            width = frac * fwhm / eps if eps > 0 else (max_slice or 1.0)
+            if max_slice:
+                width = min(width, float(max_slice))
+            if li + 1 < len(tops):
+                width = min(width, tops[li + 1] - z)
+            if math.isfinite(hard_end):
+                width = min(width, hard_end - z)
+            width = max(width, 1e-9)
+            # midpoint step of the nominal energy
+            e_half = energy - 0.5 * width * s_in * self.inv_cos_in
+            energy = energy - width * float(self._mix_stopping(comp, e_half, scale)) * self.inv_cos_in
+            z += width
+            edges.append(z)
+            e_in.append(energy)
+            layer_of.append(li)
+        edges = np.asarray(edges)
+        if has_substrate and k_all.size:
+            # where does the heaviest isotope's signal fall below the lowest characteristic?
+            e_in = np.asarray(e_in)
+            out_e = k_all.max() * e_in.copy()
+            layer_of = np.asarray(layer_of)
+            for j in range(len(layer_of) - 1, -1, -1):
+                if layer_of[j] < 0:
+                    continue
+                dy = (edges[j + 1] - edges[j]) * self.inv_cos_out
+                sub = out_e[j + 1:]
+                s0 = self._mix_stopping(comps[layer_of[j]], sub, scale)
+                half = sub - 0.5 * dy * s0
+                sub -= dy * self._mix_stopping(comps[layer_of[j]], np.maximum(half, 1.0), scale)
+                np.maximum(sub, 0.0, out=sub)
+            below = np.flatnonzero(out_e < d0)
+            if below.size:
+                need = max(edges[below[0]] * _SUBSTRATE_DEPTH_MARGIN, limit)
+                cut = int(np.searchsorted(edges, need, side="left"))
+                edges = edges[: min(cut + 1, edges.size)]
+        if edges.size < 2:
+            edges = np.array([0.0, max(limit, 1.0)])
+        return SliceGrid.from_edges(edges)
+
+    # ------------------------------------------------------------------------------------------
+    # public
+    def default_nuisance(self) -> Nuisance:
+        """The nuisance parameters as the run file gives them."""
+        cal = self.run.calibration
+        scale = np.array([self.run.physics.stopping_scale.get(s, 1.0) for s in self.elements])
+        return Nuisance(1.0, float(cal.keV_per_channel), float(cal.offset_keV),
+                        float(cal.quadratic_keV), float(self.run.detector.fwhm_keV), scale)
+
+    def layer_fractions(self) -> np.ndarray:
+        """The run's layered sample on the grid, ``(n_slices, n_species)``.
+
+        A slice that straddles a layer boundary gets the areal-density-weighted mix; slices
+        below a sample without substrate are rows of zeros (vacuum).
+        """
+        g = self.grid
+        out = np.zeros((len(g), len(self.species)))
+        top = 0.0
+        for layer, per in zip(self.run.layers, self._layer_species):
+            bottom = math.inf if layer.substrate else top + float(layer.areal_density_1e15)
+            overlap = np.clip(np.minimum(g.edges_1e15[1:], bottom)
+                              - np.maximum(g.edges_1e15[:-1], top), 0.0, None)
+            weight = overlap / g.widths_1e15
+            for sym, f in layer.fractions.items():
+                out[:, self.species.index(per[sym].label)] += weight * f
+            if layer.substrate:
+                break
+            top = bottom
+        return out
+
+    def _check_nuisance(self, nuisance) -> Nuisance:
+        if nuisance is None:
+            return self.default_nuisance()
+        if not isinstance(nuisance, Nuisance):
+            raise TypeError(f"nuisance must be a forward.Nuisance, got {type(nuisance).__name__}")
+        if nuisance.stopping_scale.size != len(self.elements):
+            raise InputError(f"stopping_scale has {nuisance.stopping_scale.size} values; give one "
+                             f"per element ({', '.join(self.elements)})", where="nuisance: stopping_scale")
+        return nuisance
+
+    def channel_edges_keV(self, nuisance=None) -> np.ndarray:
+        """Lower edges of channels 0..n and the upper edge of the last one, keV."""
+        nu = self._check_nuisance(nuisance)
+        c = np.arange(self.n_channels + 1, dtype=float)
+        edges = nu.offset_keV + nu.gain_keV * c + nu.quadratic_keV * c * c
+        if not np.all(np.diff(edges) > 0):
+            raise InputError("the calibration does not increase over the channels; give a "
+                             "positive keV_per_channel and a quadratic term that keeps it rising",
+                             where="nuisance: gain_keV")
+        return edges
+
+    def channel_energy_keV(self, nuisance=None) -> np.ndarray:
+        """Energy at the middle of each channel, keV: ``E(c + 0.5)``."""
+        nu = self._check_nuisance(nuisance)
+        c = np.arange(self.n_channels, dtype=float) + 0.5
+        return nu.offset_keV + nu.gain_keV * c + nu.quadratic_keV * c * c
+
+    def kernel_arguments(self, fractions, nuisance=None, *, per_species=False, record=None):
+        """The plain arguments of :func:`forward._kernel.spectrum_kernel`, as a tuple."""
+        nu = self._check_nuisance(nuisance)
+        fr = np.ascontiguousarray(fractions, dtype=float)
+        n, m = len(self.grid), len(self.species)
+        if fr.shape != (n, m):
+            raise InputError(f"the fraction table has shape {fr.shape}; it must be "
+                             f"(n_slices, n_species) = ({n}, {m})", where="fractions")
+        if not np.all(np.isfinite(fr)) or np.any(fr < 0):
+            raise InputError("fractions must be finite and >= 0", where="fractions")
+        for name in ("fluence_scale", "gain_keV", "fwhm_keV"):
+            v = getattr(nu, name)
+            if not (np.isfinite(v) and (v > 0 or (name == "fwhm_keV" and v == 0))):
+                raise InputError(f"{name}={v!r}; it must be a finite number > 0"
+                                 + (" (or 0 for fwhm_keV)" if name == "fwhm_keV" else ""),
+                                 where=f"nuisance: {name}")
+        if not np.all(np.isfinite(nu.stopping_scale) & (nu.stopping_scale > 0)):
+            raise InputError("stopping scales must be finite and > 0", where="nuisance: stopping_scale")
+        exp = self.run.exposure
+        omega_sr = self.run.detector.solid_angle_msr * 1e-3
+        yield_factor = (exp.incident_particles * omega_sr * 1e-27 * 1e15 * exp.live_fraction
+                        * nu.fluence_scale * self.inv_cos_in)
+        edges = self.channel_edges_keV(nu)
+        rec = self._empty_record if record is None else record
+        return (self.grid.widths_1e15, fr, self.species_element, len(self.elements),
+                float(self.table_energy_keV[0]), self.table_step_keV,
+                self._S, self._dS, self._d2S, self._W, self._dW,
+                np.ascontiguousarray(nu.stopping_scale, dtype=float),
+                self._iso_species, self._iso_k, self._iso_weight, self._e2sigma,
+                self.energy_keV, self.inv_cos_in, self.inv_cos_out, yield_factor,
+                edges, float(nu.fwhm_keV) * FWHM_TO_SIGMA, self.particle_step_keV,
+                TABLE_FLOOR_KEV, self._ftab, self._fder, BROADENING_HALF_WIDTH, self._du,
+                bool(per_species), rec)
+
+    def expected_counts(self, fractions, nuisance=None, *, per_species=False) -> np.ndarray:
+        """Expected counts per channel.
+
+        Parameters
+        ----------
+        fractions : (n_slices, n_species) array_like
+            Atom fractions per slice (rows of zeros are vacuum).
+        nuisance : Nuisance, optional
+            Default: :meth:`default_nuisance`.
+        per_species : bool, optional
+            Return ``(n_species, n_channels)``, one spectrum per species.
+
+        Returns
+        -------
+        numpy.ndarray
+            ``(n_channels,)`` float64, or ``(n_species, n_channels)``.
+        """
+        args = self.kernel_arguments(fractions, nuisance, per_species=per_species)
+        out = spectrum_kernel(*args)
+        p = self.run.physics.pileup.probability
+        if per_species:
+            return out * (1.0 - p) if p > 0 else out
+        total = out[0]
+        if p > 0:
+            nu = self._check_nuisance(nuisance)
+            total = self._with_pileup(total, p, nu)
+        return total
+
+    def _with_pileup(self, single, p, nu):
+        """First-order pile-up (see module notes)."""
+        n_total = float(single.sum())
+        if n_total <= 0:
+            return single
+        s = single / n_total
+        conv = np.convolve(s, s)  # index m = c1 + c2
+        # centres: E = off + g (c + 0.5); sum at off + g (m + off/g + 0.5) + ... -> position
+        pos = np.arange(conv.size) + nu.offset_keV / nu.gain_keV + 0.5
+        lo = np.floor(pos).astype(int)
+        w_hi = pos - lo
+        piled = np.zeros(single.size)
+        for idx, w in ((lo, 1.0 - w_hi), (lo + 1, w_hi)):
+            ok = (idx >= 0) & (idx < single.size)
+            np.add.at(piled, idx[ok], (conv * w)[ok])
+        return (1.0 - p) * single + 0.5 * p * n_total * piled
+
+    def edge_table(self, fractions=None, nuisance=None) -> np.ndarray:
+        """Per grid edge and isotope: detected energy, straggling variance, energy before scattering.
+
+        Returns
+        -------
+        (n_slices + 1, n_isotopes, 3) float64
+            ``[..., 0]`` detected energy (keV) of an ion scattered at that edge,
+            ``[..., 1]`` its energy variance from straggling at the detector (keV^2; the
+            detector term not included), ``[..., 2]`` the ion energy just before scattering.
+            NaN below the depth the model follows.
+        """
+        fr = self.layer_fractions() if fractions is None else fractions
+        rec = np.zeros((len(self.grid) + 1, self._iso_k.size, 3))
+        spectrum_kernel(*self.kernel_arguments(fr, nuisance, record=rec))
+        return rec
+
+    def depth_map(self, nuisance=None, fractions=None) -> dict:
+        """Detected surface-edge-to-depth map per species.
+
+        For each species, the detected energy (keV) of ions scattered by its most abundant
+        isotope at each grid edge, and that edge's depth (1e15 atoms/cm2), for the run's
+        layered sample unless ``fractions`` is given.
+
+        Returns
+        -------
+        dict[str, tuple[numpy.ndarray, numpy.ndarray]]
+            species -> ``(energy_keV, depth_1e15)``, energy decreasing with depth.
+        """
+        rec = self.edge_table(fractions, nuisance)
+        out = {}
+        for sp, label in enumerate(self.species):
+            idx = np.flatnonzero(self._iso_species == sp)
+            if idx.size == 0:
+                out[label] = (np.zeros(0), np.zeros(0))
+                continue
+            q = idx[np.argmax(self._iso_weight[idx])]
+            e = rec[:, q, 0]
+            ok = np.isfinite(e)
+            out[label] = (e[ok].copy(), self.grid.edges_1e15[ok].copy())
+        return out
