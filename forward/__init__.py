@@ -38,6 +38,9 @@ _EXPORTS = {
     "nuclear_stopping": "._stopping",
     "load_stopping_table": "._stopping",
     "StoppingRangeWarning": "._stopping",
+    "StoppingTable": "._stopping",
+    "check_stopping_range": "._stopping",
+    "VALIDATED_MAX_KEV": "._stopping",
     # paths and straggling
     "energy_after_path": "._path",
     "path_to_energy": "._path",

@@ -58,8 +58,13 @@ def element(symbol: str) -> Element:
         if abundance > 0:
             isos.append(Isotope(symbol, int(el.number), int(a), float(iso.mass), abundance))
     if not isos:
-        raise InputError(f"element {symbol!r} has no stable isotope with a natural abundance; "
-                         "give its isotopes explicitly in the layer's isotope overrides")
+        # periodictable lists no natural abundances for a few elements (Tc, Pm, U, ...): treat
+        # the element as one pseudo-isotope at its standard atomic weight.  A layer's isotope
+        # overrides can still name real isotopes.
+        if not float(el.mass) > 0:
+            raise InputError(f"element {symbol!r} has no standard atomic weight; give its isotopes "
+                             "explicitly in the layer's isotope overrides")
+        isos.append(Isotope(symbol, int(el.number), int(round(float(el.mass))), float(el.mass), 1.0))
     total = sum(i.abundance for i in isos)
     isos = tuple(Isotope(i.symbol, i.z, i.mass_number, i.mass_u, i.abundance / total) for i in isos)
     out = Element(symbol, int(el.number), float(el.mass), isos)
