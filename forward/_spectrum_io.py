@@ -146,7 +146,7 @@ def _read_text(data: bytes, source: str) -> Spectrum:
 
     width = len(rows[0][1])
     header: list[str] | None = None
-    if any(not _is_number(c) for c in rows[0][1]):
+    if any(c and not _is_number(c) for c in rows[0][1]):
         lineno, header = rows[0]
         rows = rows[1:]
         for c in header:
