@@ -124,7 +124,8 @@ def test_writer_rejects_bad_columns(tmp_path):
     ("channel,counts\n", "a header but no rows"),
     ("1.5,3\n2.5,4\n", "line 1: channel 1.5 is not a whole number"),
     ("0,1\n1,,\n", "line 2: ragged row"),
-    ("0,1,\n1,2,\n", "line 1: an empty cell in column 3"),
+    ("0,\n1,2\n", "line 1: an empty cell in column 2"),
+    ("0,1,\n1,2,\n", "line 1: 3 columns without a header"),  # a trailing separator is a column
     ("channel,counts,channel\n0,1,0\n", "appears twice"),
     ("chan nel,counts\n0,1\n", "line 1: header cell 'chan nel' is not a column name"),
 ])
