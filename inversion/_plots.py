@@ -130,7 +130,7 @@ def _channel_to_energy(channel, channel_energy_keV, calibration):
 
 def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
                   species_spectra=None, channel_energy_keV=None, calibration=None,
-                  log_counts=False, show_species=True, label=None, fig=None,
+                  window=None, log_counts=False, show_species=True, label=None, fig=None,
                   figsize=(9.0, 5.6), title=None):
     """Measured spectrum, posterior predictive bands, each species' contribution and residuals.
 
@@ -152,6 +152,9 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
     calibration : dict, optional
         ``{"offset_keV": a, "keV_per_channel": b, "quadratic_keV": q}``: the energy of channel
         c is a + b c + q c**2 (q optional); used before ``channel_energy_keV``.
+    window : array_like of bool, optional
+        True for channels inside the fitted window; residuals are drawn there only and the
+        channels outside are shaded as not fitted.
     log_counts : bool, optional
         Logarithmic counts axis.
     show_species : bool, optional
@@ -178,6 +181,7 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
     species_spectra = _pick(species_spectra, data, "species_spectra") or {}
     channel_energy_keV = _pick(channel_energy_keV, data, "channel_energy_keV")
     calibration = _pick(calibration, data, "calibration") or {}
+    window = _pick(window, data, "window")
     if counts is None or predictive is None:
         raise ValueError("plot_spectrum needs counts and predictive (give a result or both "
                          "arrays)")
@@ -225,11 +229,21 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
             ax.set_ylim(bottom=0.5)
         else:
             ax.set_ylim(bottom=0)
-        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
         if title and new:
             ax.set_title(title, pad=28)
 
         residual = deviance_residuals(counts, predictive[2])
+        if window is not None:
+            window = np.asarray(window, dtype=bool)
+            residual = np.where(window, residual, np.nan)
+            if new and not window.all():
+                outside = np.flatnonzero(~window)
+                runs = np.split(outside, np.flatnonzero(np.diff(outside) > 1) + 1)
+                for k, run in enumerate(runs):
+                    for axis in (ax, axr):
+                        axis.axvspan(channel[run[0]] - 0.5, channel[run[-1]] + 0.5,
+                                     color="#f2f2f2", zorder=0, linewidth=0,
+                                     label="not fitted" if (axis is ax and k == 0) else None)
         axr.axhspan(-2, 2, color="#eeeeee", zorder=0, linewidth=0)
         axr.axhline(0.0, color="#888888", linewidth=0.8)
         axr.plot(channel, residual, linestyle="none", marker="o", markersize=2.0,
@@ -240,6 +254,7 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
         axr.set_ylabel("deviance\nresidual")
         axr.set_xlabel("channel")
         axr.set_xlim(channel[0] - 0.5, channel[-1] + 0.5)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
         if new:
             axr.text(0.995, 0.04, "shaded: |residual| < 2", transform=axr.transAxes,
                      ha="right", va="bottom", fontsize=7.5, color="#666666")
@@ -367,7 +382,9 @@ def _corner_selection(data, max_quantities):
         if q.draws is None or q.draws.size != n:
             continue
         name = q.name.lower()
-        if q.kind == "derived" and not ("thickness" in name or "width" in name):
+        if q.kind == "derived" and not any(w in name for w in ("thickness", "width", "mixing")):
+            continue
+        if not np.all(np.isfinite(q.draws)):
             continue
         if any(np.array_equal(q.draws, c) for c in columns):
             continue
@@ -425,7 +442,7 @@ def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bin
         if len(labels) != samples.shape[1]:
             raise ValueError(f"{len(labels)} labels for {samples.shape[1]} quantities")
     # a quantity that never moved (a fixed value stored as a draw) cannot be histogrammed
-    spread = np.ptp(samples, axis=0) > 0
+    spread = np.all(np.isfinite(samples), axis=0) & (np.ptp(samples, axis=0) > 0)
     if not spread.all():
         samples = samples[:, spread]
         labels = [lab for lab, keep in zip(labels, spread) if keep] if labels else None
@@ -484,8 +501,8 @@ def autocorr_growth(chain, *, n_points=12, min_steps=20):
     return steps, tau
 
 
-def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_points=12,
-                     fig=None, figsize=(8.5, 5.2)):
+def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_traces=4,
+                     n_points=12, fig=None, figsize=(8.5, 5.2)):
     """Walker traces of the slowest parameters and the autocorrelation time against length.
 
     The right panel shows the estimate of the integrated autocorrelation time on the first N
@@ -501,6 +518,9 @@ def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_poi
         Chain to draw instead of the result's.
     names : sequence of str, optional
         Parameter names (default: from the result, or p0, p1, ...).
+    discard : int, optional
+        Burn-in steps left out of the posterior draws (default: the result's), shaded on the
+        traces.
     max_traces : int, optional
         How many parameters get a trace panel (those with the longest autocorrelation times).
     n_points : int, optional
@@ -526,6 +546,8 @@ def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_poi
         names = data.parameter_names if data is not None and data.parameter_names else \
             [f"p{i}" for i in range(n_par)]
     names = list(names)
+    if discard is None and data is not None and "discard" in data.diagnostics:
+        discard = int(np.asarray(data.diagnostics["discard"]).item())
     steps, tau = autocorr_growth(chain, n_points=n_points)
     order = np.argsort(-tau[-1])[:max(1, min(max_traces, n_par))]
 
@@ -541,6 +563,8 @@ def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_poi
             axis.plot(np.arange(n_steps), chain[:, :, j], color=_style.MODEL_COLOUR,
                       alpha=max(0.08, min(0.5, 6.0 / n_walkers)), linewidth=0.6,
                       rasterized=True)
+            if discard:
+                axis.axvspan(0, discard, color="#e8e8e8", linewidth=0, zorder=0)
             axis.text(0.01, 0.96, names[j], transform=axis.transAxes, ha="left", va="top",
                       fontsize=8, bbox={"facecolor": "white", "edgecolor": "none",
                                         "alpha": 0.8, "pad": 1.5})
@@ -550,8 +574,10 @@ def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_poi
             else:
                 axis.set_xlabel("step")
             if row == 0:
-                axis.set_title(f"walker traces ({n_walkers} walkers; slowest parameters)",
-                               fontsize=9.5)
+                title = f"walker traces ({n_walkers} walkers; slowest parameters)"
+                if discard:
+                    title += "\ngrey: burn-in, left out of the posterior draws"
+                axis.set_title(title, fontsize=9.5)
         axt = fig.add_subplot(grid[:, 1])
         for k, j in enumerate(order):
             axt.plot(steps, tau[:, j], marker="o", markersize=3,
@@ -567,7 +593,7 @@ def plot_convergence(result=None, *, chain=None, names=None, max_traces=4, n_poi
         axt.set_xlabel("chain length N (steps)")
         axt.set_ylabel("autocorrelation time estimate (steps)")
         axt.set_title("autocorrelation time on the first N steps", fontsize=9.5)
-        axt.legend(loc="upper left", fontsize=7.5)
+        axt.legend(loc="lower right", fontsize=7.5)
         if not math.isfinite(float(np.max(tau))):
             axt.text(0.5, 0.5, "estimate undefined", transform=axt.transAxes, ha="center")
     return fig

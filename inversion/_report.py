@@ -13,8 +13,10 @@ Every number in the summaries comes from the file: medians and central intervals
 from __future__ import annotations
 
 import csv
+import hashlib
 import json
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -28,6 +30,7 @@ __all__ = [
     "read_report_data",
     "summarise_draws",
     "build_report",
+    "write_report",
     "format_summary_text",
     "PROFILE_QUANTILES",
     "SUMMARY_COLUMNS",
@@ -43,20 +46,14 @@ SUMMARY_COLUMNS = (
     "autocorr_time_steps", "effective_sample_size", "prior",
 )
 
-# Field names other writers might use for the same statistic -> our name.
 _STAT_ALIASES = {
-    "median": "median", "p50": "median", "q50": "median",
-    "mean": "mean",
-    "sd": "sd", "std": "sd", "stdev": "sd",
-    "lower_68": "lower_68", "lo68": "lower_68", "q16": "lower_68", "p16": "lower_68",
-    "upper_68": "upper_68", "hi68": "upper_68", "q84": "upper_68", "p84": "upper_68",
-    "lower_95": "lower_95", "lo95": "lower_95", "q2.5": "lower_95", "p2.5": "lower_95",
-    "q025": "lower_95",
-    "upper_95": "upper_95", "hi95": "upper_95", "q97.5": "upper_95", "p97.5": "upper_95",
-    "q975": "upper_95",
+    "median": "median", "mean": "mean", "sd": "sd", "std": "sd",
+    "low68": "lower_68", "high68": "upper_68", "low95": "lower_95", "high95": "upper_95",
+    "lower_68": "lower_68", "upper_68": "upper_68", "lower_95": "lower_95",
+    "upper_95": "upper_95",
 }
-_INTERVAL_ALIASES = {"ci68": ("lower_68", "upper_68"), "interval_68": ("lower_68", "upper_68"),
-                     "ci95": ("lower_95", "upper_95"), "interval_95": ("lower_95", "upper_95")}
+_STAT_KEYS = ("median", "mean", "sd", "lower_68", "upper_68", "lower_95", "upper_95")
+_PRIOR_LINE = re.compile(r"^\s*(?P<name>[^\[\]:]+?)\s*\[(?P<unit>[^\]]*)\]\s*:\s*(?P<prior>.*)$")
 
 
 @dataclass
@@ -72,11 +69,15 @@ class Quantity:
     unit : str
         Unit text ("" for dimensionless).
     stats : dict of str to float
-        ``median``, ``mean``, ``sd``, ``lower_68``, ``upper_68``, ``lower_95``, ``upper_95``.
+        ``median``, ``mean``, ``sd``, ``lower_68``, ``upper_68``, ``lower_95``, ``upper_95``;
+        for parameters also ``autocorr_time_steps`` and ``effective_sample_size`` when the file
+        has diagnostics.
     prior : str
         The prior as the file describes it ("" when the file does not say).
     draws : numpy.ndarray or None
         Posterior draws, when the file stores them.
+    note : str
+        The file's note on this quantity (e.g. why it is NaN).
     """
 
     name: str
@@ -85,6 +86,7 @@ class Quantity:
     stats: dict
     prior: str = ""
     draws: np.ndarray | None = None
+    note: str = ""
 
 
 @dataclass
@@ -97,7 +99,6 @@ class ReportData:
     quantities: list = field(default_factory=list)  # list[Quantity], parameters first
     parameter_names: list = field(default_factory=list)
     samples: np.ndarray | None = None  # draws x parameters
-    derived_notes: list = field(default_factory=list)
     report_notes: list = field(default_factory=list)
     depth_1e15: np.ndarray | None = None
     depth_nm: np.ndarray | None = None
@@ -106,18 +107,20 @@ class ReportData:
     channel: np.ndarray | None = None
     counts: np.ndarray | None = None
     predictive: np.ndarray | None = None  # (5, channels)
+    window: np.ndarray | None = None  # bool per channel: fitted
     species_spectra: dict = field(default_factory=dict)  # species -> (channels,)
     channel_energy_keV: np.ndarray | None = None
     calibration: dict = field(default_factory=dict)  # offset_keV, keV_per_channel, quadratic_keV
+    calibration_source: str = ""
     chain: np.ndarray | None = None  # steps x walkers x parameters
     log_prob: np.ndarray | None = None  # steps x walkers
     diagnostics: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
 
-    def quantity(self, name: str) -> Quantity:
-        """The :class:`Quantity` called ``name``; KeyError if the file has none."""
+    def quantity(self, name: str, kind: str | None = None) -> Quantity:
+        """The first :class:`Quantity` called ``name`` (of ``kind``, if given); KeyError if none."""
         for q in self.quantities:
-            if q.name == name:
+            if q.name == name and (kind is None or q.kind == kind):
                 return q
         raise KeyError(name)
 
@@ -148,7 +151,7 @@ def _text(value) -> str:
 
 
 def _strings(value) -> list[str]:
-    """A list-of-strings attribute (array, JSON text or comma-free single string)."""
+    """A list-of-strings attribute or dataset (array of strings, or JSON list text)."""
     if value is None:
         return []
     if isinstance(value, (bytes, str)):
@@ -162,7 +165,7 @@ def _strings(value) -> list[str]:
 
 
 def _plain(value):
-    """An HDF5 attribute value as a plain Python object (str, float, int, bool, list)."""
+    """An HDF5 attribute value as a plain Python object (str, float, int, bool, list, array)."""
     if isinstance(value, (bytes, str)):
         return _text(value)
     arr = np.asarray(value)
@@ -175,8 +178,9 @@ def _plain(value):
 
 def unit_from_name(name: str) -> str:
     """The unit implied by a name's suffix (our naming rules), or "" when none is implied."""
-    suffixes = (("_1e15", "1e15 atoms/cm2"), ("_nm", "nm"), ("_keV", "keV"), ("_deg", "deg"),
-                ("_msr", "msr"), ("_uC", "uC"), ("_keV2", "keV^2"), ("_g_cm3", "g/cm3"))
+    suffixes = (("_1e15", "1e15 atoms/cm2"), ("_nm", "nm"), ("_keV2", "keV^2"),
+                ("_keV", "keV"), ("_deg", "deg"), ("_msr", "msr"), ("_uC", "uC"),
+                ("_g_cm3", "g/cm3"))
     for suffix, unit in suffixes:
         if name.endswith(suffix):
             return unit
@@ -189,20 +193,20 @@ def summarise_draws(draws) -> dict:
     Parameters
     ----------
     draws : array_like
-        Posterior draws of one scalar quantity (any shape; flattened).
+        Posterior draws of one scalar quantity (any shape; flattened; NaN ignored).
 
     Returns
     -------
     dict
         ``median``, ``mean``, ``sd`` (ddof=1), ``lower_68``, ``upper_68`` (16 and 84 %
-        quantiles), ``lower_95``, ``upper_95`` (2.5 and 97.5 % quantiles), all floats.
+        quantiles), ``lower_95``, ``upper_95`` (2.5 and 97.5 % quantiles), all floats; NaN
+        when no draw is finite.
     """
     x = np.asarray(draws, dtype=float).ravel()
     x = x[np.isfinite(x)]
     if x.size == 0:
-        return {k: math.nan for k in ("median", "mean", "sd", "lower_68", "upper_68",
-                                      "lower_95", "upper_95")}
-    q = np.percentile(x, PROFILE_QUANTILES)
+        return {k: math.nan for k in _STAT_KEYS}
+    q = np.quantile(x, [p / 100.0 for p in PROFILE_QUANTILES])
     return {
         "median": float(q[2]), "mean": float(x.mean()),
         "sd": float(x.std(ddof=1)) if x.size > 1 else 0.0,
@@ -211,97 +215,47 @@ def summarise_draws(draws) -> dict:
     }
 
 
-def _read_summary(node) -> dict[str, dict]:
-    """``/posterior/summary`` as {quantity name: {statistic: value}}; tolerant of layouts.
+def _read_summary(group) -> list[tuple[str, str, dict]]:
+    """``/posterior/summary`` as rows (name, unit, stats), in the file's order.
 
-    Accepted layouts: a structured dataset with a name field and one field per statistic; a
-    group holding ``names`` and one dataset per statistic (``ci68``/``ci95`` as n x 2 allowed);
-    a group holding one sub-group per quantity whose attributes are the statistics.
+    The store writes ``names``, ``units`` and one dataset per statistic (``median``, ``mean``,
+    ``sd``, ``low68``, ``high68``, ``low95``, ``high95``); a name may appear twice (a parameter
+    and the derived quantity of the same name), hence rows rather than a dict.
     """
     import h5py
 
-    out: dict[str, dict] = {}
-    if isinstance(node, h5py.Dataset) and node.dtype.names:
-        table = node[()]
-        name_field = next((f for f in ("name", "names", "quantity") if f in node.dtype.names), None)
-        if name_field is None:
-            return out
-        for row in np.atleast_1d(table):
-            stats = {}
-            for f in node.dtype.names:
-                key = _STAT_ALIASES.get(f.lower())
-                if key:
-                    stats[key] = float(row[f])
-            out[_text(row[name_field])] = stats
-        return out
-    if not isinstance(node, h5py.Group):
-        return out
-    if "names" in node or "names" in node.attrs:
-        names = _strings(node["names"][()] if "names" in node else node.attrs["names"])
-        columns: dict[str, np.ndarray] = {}
-        for key in node:
-            if key == "names":
-                continue
-            data = np.asarray(node[key][()], dtype=float)
-            low = key.lower()
-            if low in _STAT_ALIASES:
-                columns[_STAT_ALIASES[low]] = data.reshape(len(names))
-            elif low in _INTERVAL_ALIASES:
-                data = data.reshape(len(names), 2) if data.shape[0] == len(names) else data.T
-                lo, hi = _INTERVAL_ALIASES[low]
-                columns[lo], columns[hi] = data[:, 0], data[:, 1]
-        for i, name in enumerate(names):
-            out[name] = {k: float(v[i]) for k, v in columns.items()}
-        return out
-    for name, sub in node.items():
-        stats = {}
-        source = dict(sub.attrs) if isinstance(sub, h5py.Group) else {}
-        if isinstance(sub, h5py.Group):
-            for key in sub:
-                source[key] = sub[key][()]
-        for key, value in source.items():
-            low = key.lower()
-            if low in _STAT_ALIASES:
-                stats[_STAT_ALIASES[low]] = float(np.asarray(value))
-            elif low in _INTERVAL_ALIASES:
-                lo, hi = _INTERVAL_ALIASES[low]
-                stats[lo], stats[hi] = (float(v) for v in np.asarray(value).ravel()[:2])
-        if stats:
-            out[name] = stats
-    return out
+    if not isinstance(group, h5py.Group) or "names" not in group:
+        return []
+    names = _strings(group["names"][()])
+    units = _strings(group["units"][()]) if "units" in group else [""] * len(names)
+    if len(units) != len(names):
+        units = [""] * len(names)
+    columns = {}
+    for key in group:
+        if key.lower() in _STAT_ALIASES:
+            values = np.asarray(group[key][()], dtype=float).ravel()
+            if values.size == len(names):
+                columns[_STAT_ALIASES[key.lower()]] = values
+    return [(name, units[i], {k: float(v[i]) for k, v in columns.items()})
+            for i, name in enumerate(names)]
 
 
-def _read_priors(f, names: list[str]) -> dict[str, str]:
-    """Prior of each parameter as text, from wherever the file keeps it."""
-    priors: dict[str, str] = {}
-    samples = f["posterior/samples"]
-    if "priors" in samples.attrs:
-        texts = _strings(samples.attrs["priors"])
-        if len(texts) == len(names):
-            priors.update(zip(names, texts))
-    node = f.get("posterior/priors")
-    if node is not None:
-        if hasattr(node, "attrs") and not hasattr(node, "shape"):
-            for key, value in node.attrs.items():
-                priors[key] = _text(value)
-            for key in node:
-                priors[key] = _text(node[key][()])
-        else:
-            texts = _strings(node[()])
-            if len(texts) == len(names):
-                priors.update(zip(names, texts))
-    return priors
+def _read_priors(f) -> dict[str, str]:
+    """Prior of each parameter as text: lines ``name [unit]: prior`` in the file."""
+    for key in ("posterior/priors", "input/priors"):
+        if key in f:
+            priors = {}
+            for line in _strings(f[key][()]):
+                m = _PRIOR_LINE.match(line)
+                if m:
+                    priors[m["name"]] = m["prior"].strip()
+            if priors:
+                return priors
+    return {}
 
 
-def _walk_datasets(group, prefix=""):
-    import h5py
-
-    for key, item in group.items():
-        name = f"{prefix}{key}"
-        if isinstance(item, h5py.Group):
-            yield from _walk_datasets(item, prefix=f"{name}/")
-        else:
-            yield name, item
+def _sha256(data: bytes) -> str:
+    return "sha256:" + hashlib.sha256(data).hexdigest()
 
 
 def read_report_data(path) -> ReportData:
@@ -310,7 +264,7 @@ def read_report_data(path) -> ReportData:
     Parameters
     ----------
     path : str or pathlib.Path
-        An HDF5 result file written by the sampler.
+        An HDF5 result file written by ``sondage invert``.
 
     Returns
     -------
@@ -319,7 +273,7 @@ def read_report_data(path) -> ReportData:
     Raises
     ------
     forward.InputError
-        When the file is missing, is not HDF5, or has no ``/posterior/samples``.
+        When the file is missing, is not HDF5, is damaged, or has no ``/posterior/samples``.
     """
     import h5py
 
@@ -327,23 +281,23 @@ def read_report_data(path) -> ReportData:
     where = str(path)
     if not path.exists():
         raise InputError("result file not found; give the path of an HDF5 result file "
-                         "written by the sampler", where=where)
+                         "written by 'sondage invert'", where=where)
     if path.is_dir():
         raise InputError("this is a folder; give the path of an HDF5 result file", where=where)
     try:
         f = h5py.File(path, "r")
     except OSError:
-        raise InputError("not a readable HDF5 file (corrupt or of another kind); give a result "
-                         "file written by the sampler", where=where) from None
+        raise InputError("not a readable HDF5 file (damaged, truncated or of another kind); "
+                         "give a result file written by 'sondage invert'", where=where) from None
     try:
         with f:
             return _read_open_file(f, path)
     except InputError:
         raise
-    except (OSError, KeyError, ValueError, TypeError) as exc:
+    except (OSError, KeyError, ValueError, TypeError, IndexError) as exc:
         first = " ".join(str(exc).split()) or type(exc).__name__
         raise InputError(f"result file is damaged or incomplete ({first}); write it again "
-                         "with the sampler", where=where) from None
+                         "with 'sondage invert'", where=where) from None
 
 
 def _read_open_file(f, path: Path) -> ReportData:
@@ -352,17 +306,23 @@ def _read_open_file(f, path: Path) -> ReportData:
     where = str(path)
     data = ReportData(path=path)
     if "posterior/samples" not in f:
-        raise InputError("no posterior draws in this file; a report needs /posterior/samples, "
-                         "written by a finished or resumed sampler run",
+        status = _text(f.attrs.get("status", "")) if "status" in f.attrs else ""
+        hint = f" (the file's status is {status!r})" if status else ""
+        raise InputError(f"no posterior draws in this file{hint}; a report needs "
+                         "/posterior/samples, written when a run finishes or is interrupted",
                          where=f"{where}: /posterior/samples")
 
-    # provenance: root attributes, and the input file hashes wherever they are kept
+    # provenance: root attributes, plus fingerprints of the inputs stored in the file
     data.provenance = {k: _plain(v) for k, v in f.attrs.items()}
-    if "input" in f:
-        for key, value in f["input"].attrs.items():
-            data.provenance.setdefault(f"input.{key}", _plain(value))
-        if "run" in f["input"]:
-            data.run_text = _text(f["input/run"][()])
+    hashes = {}
+    if "input/run" in f:
+        data.run_text = _text(f["input/run"][()])
+        hashes["run file text stored in the result"] = _sha256(data.run_text.encode("utf-8"))
+    if "input/spectrum" in f:
+        counts = np.ascontiguousarray(f["input/spectrum"][()], dtype="<f8")
+        hashes["spectrum counts stored in the result (float64, little-endian)"] = \
+            _sha256(counts.tobytes())
+    data.provenance["_input_hashes"] = hashes
 
     samples_ds = f["posterior/samples"]
     samples = np.asarray(samples_ds[()], dtype=float)
@@ -376,41 +336,38 @@ def _read_open_file(f, path: Path) -> ReportData:
         units = [unit_from_name(n) for n in names]
     data.samples = samples
     data.parameter_names = names
+    priors = _read_priors(f)
+    rows = _read_summary(f["posterior/summary"]) if "posterior/summary" in f else []
 
-    summary = _read_summary(f["posterior/summary"]) if "posterior/summary" in f else {}
-    priors = _read_priors(f, names)
-
+    # parameters: the first rows of the summary, when they name the parameters in order
+    param_rows = rows[:len(names)] if [r[0] for r in rows[:len(names)]] == names else []
+    derived_rows = rows[len(param_rows):]
     for i, name in enumerate(names):
         stats = summarise_draws(samples[:, i])
-        stats.update(summary.get(name, {}))
+        if param_rows:
+            stats.update(param_rows[i][2])
         data.quantities.append(Quantity(name, "parameter", units[i], stats,
                                         priors.get(name, ""), samples[:, i]))
 
+    derived_summary = {r[0]: (r[1], r[2]) for r in derived_rows}
+    done = set()
     if "derived" in f:
-        group = f["derived"]
-        for key, value in group.attrs.items():
-            if isinstance(value, (str, bytes)) or np.asarray(value).dtype.kind in "SOU":
-                data.derived_notes.append(f"{key}: {_text(value)}")
-        for name, ds in _walk_datasets(group):
-            arr = np.asarray(ds[()])
-            if arr.dtype.kind not in "fiu" or arr.size == 0:
+        for name, ds in f["derived"].items():
+            if not isinstance(ds, h5py.Dataset) or ds.dtype.kind not in "fiu":
                 continue
-            for key, value in ds.attrs.items():
-                if key not in ("units", "unit", "label") and isinstance(value, (str, bytes)):
-                    data.derived_notes.append(f"{name}: {_text(value)}")
-            qname = name.replace("/", ".")
-            unit = _text(ds.attrs.get("units", ds.attrs.get("unit", unit_from_name(name))))
-            draws = arr.astype(float).ravel()
+            draws = np.asarray(ds[()], dtype=float).ravel()
+            unit_attr = ds.attrs.get("unit", ds.attrs.get("units"))
+            unit = _text(unit_attr) if unit_attr is not None else \
+                derived_summary.get(name, (unit_from_name(name),))[0]
             stats = summarise_draws(draws)
-            stats.update(summary.get(qname, summary.get(name, {})))
-            data.quantities.append(Quantity(qname, "derived", unit, stats, "", draws))
-
-    # derived quantities that exist only in the summary (no draws stored)
-    known = {q.name for q in data.quantities} | {q.name.replace(".", "/") for q in data.quantities}
-    for name, stats in summary.items():
-        if name not in known and stats:
-            full = {k: stats.get(k, math.nan) for k in summarise_draws([])}
-            data.quantities.append(Quantity(name, "derived", unit_from_name(name), full))
+            stats.update(derived_summary.get(name, ("", {}))[1])
+            note = _text(ds.attrs["note"]) if "note" in ds.attrs else ""
+            data.quantities.append(Quantity(name, "derived", unit, stats, "", draws, note))
+            done.add(name)
+    for name, unit, stats in derived_rows:  # summarised but without stored draws
+        if name not in done:
+            full = {k: stats.get(k, math.nan) for k in _STAT_KEYS}
+            data.quantities.append(Quantity(name, "derived", unit, full))
 
     if "profile" in f:
         prof = f["profile"]
@@ -427,45 +384,24 @@ def _read_open_file(f, path: Path) -> ReportData:
             elif arr.ndim == 2 and arr.shape[0] == len(PROFILE_QUANTILES):
                 data.profile_bands[key] = arr
 
-    if "spectrum" in f:
-        spec = f["spectrum"]
-        if "counts" in spec:
-            data.counts = np.asarray(spec["counts"][()], dtype=float)
-        elif "input" in f and "spectrum" in f["input"]:
-            data.counts = np.asarray(f["input/spectrum"][()], dtype=float)
-        if "channel" in spec:
-            data.channel = np.asarray(spec["channel"][()], dtype=float)
-        elif data.counts is not None:
-            data.channel = np.arange(data.counts.size, dtype=float)
-        if "predictive" in spec:
-            data.predictive = np.asarray(spec["predictive"][()], dtype=float)
-        for key in ("energy_keV", "channel_energy_keV", "energy"):
-            if key in spec:
-                data.channel_energy_keV = np.asarray(spec[key][()], dtype=float)
-                break
-        species_group = next((spec[k] for k in ("species", "by_species", "partial")
-                              if k in spec and isinstance(spec[k], h5py.Group)), None)
-        if species_group is not None:
-            for key, ds in species_group.items():
-                data.species_spectra[key] = np.asarray(ds[()], dtype=float)
-        for key, ds in spec.items():
-            if isinstance(ds, h5py.Dataset) and key.endswith("_model"):
-                data.species_spectra[key[:-6]] = np.asarray(ds[()], dtype=float)
-        attrs = {k: _plain(v) for k, v in spec.attrs.items()}
-        for group_attrs in (attrs, {k: _plain(v) for k, v in
-                                    (spec["calibration"].attrs.items()
-                                     if "calibration" in spec else ())}):
-            gain = next((group_attrs[k] for k in ("keV_per_channel", "gain_keV_per_channel")
-                         if k in group_attrs), None)
-            if gain is not None:
-                data.calibration = {
-                    "offset_keV": float(group_attrs.get("offset_keV", 0.0)),
-                    "keV_per_channel": float(gain),
-                    "quadratic_keV": float(group_attrs.get("quadratic_keV", 0.0)),
-                }
-    elif "input" in f and "spectrum" in f["input"]:
+    spec = f["spectrum"] if "spectrum" in f else {}
+    if "counts" in spec:
+        data.counts = np.asarray(spec["counts"][()], dtype=float)
+    elif "input/spectrum" in f:
         data.counts = np.asarray(f["input/spectrum"][()], dtype=float)
-        data.channel = np.arange(data.counts.size, dtype=float)
+    if data.counts is not None:
+        data.channel = np.asarray(spec["channel"][()], dtype=float) if "channel" in spec else \
+            np.arange(data.counts.size, dtype=float)
+    if "predictive" in spec:
+        data.predictive = np.asarray(spec["predictive"][()], dtype=float)
+    if "window" in spec:
+        data.window = np.asarray(spec["window"][()], dtype=bool)
+    if "energy_keV" in spec:
+        data.channel_energy_keV = np.asarray(spec["energy_keV"][()], dtype=float)
+    if "species" in spec and isinstance(spec["species"], h5py.Group):
+        for key, ds in spec["species"].items():
+            data.species_spectra[key] = np.asarray(ds[()], dtype=float)
+    data.calibration, data.calibration_source = _calibration(data)
 
     if "mcmc" in f and "chain" in f["mcmc"]:
         g = f["mcmc"]
@@ -483,18 +419,48 @@ def _read_open_file(f, path: Path) -> ReportData:
                 diag[key] = _plain(value) if np.asarray(value).dtype.kind in "SOU" else \
                     np.asarray(value)
         data.diagnostics = diag
-        data.warnings = [w for w in _strings(diag.get("warnings")) if w.strip()]
-
-    if data.diagnostics:
-        tau = _per_parameter(data.diagnostics, ("autocorr_time", "tau", "autocorrelation_time"),
-                             len(names))
-        ess = _per_parameter(data.diagnostics, ("ess", "effective_sample_size"), len(names))
+        data.warnings = [w for w in _strings(diag.get("warnings"))
+                         if w.strip() and w.strip().lower() != "none"]
+        tau = _per_parameter(diag, ("autocorr_time",), len(names))
+        ess = _per_parameter(diag, ("ess",), len(names))
         for i, q in enumerate(data.quantities[:len(names)]):
             if tau is not None:
                 q.stats["autocorr_time_steps"] = float(tau[i])
             if ess is not None:
                 q.stats["effective_sample_size"] = float(ess[i])
     return data
+
+
+def _calibration(data: ReportData) -> tuple[dict, str]:
+    """Channel-to-energy calibration for the energy axis, and where it came from.
+
+    Sampled ``gain_keV`` / ``offset_keV`` parameters give their posterior medians; otherwise the
+    run file's ``[calibration]`` table (``keV_per_channel``, ``offset_keV``, ``quadratic_keV``).
+    """
+    import tomllib
+
+    table = {}
+    if data.run_text:
+        try:
+            table = tomllib.loads(data.run_text).get("calibration", {})
+        except tomllib.TOMLDecodeError:
+            table = {}
+    if not isinstance(table, dict):
+        table = {}
+    medians = {q.name: q.stats["median"] for q in data.quantities if q.kind == "parameter"}
+    gain = medians.get("gain_keV", table.get("keV_per_channel"))
+    if gain is None:
+        return {}, ""
+    try:
+        cal = {"offset_keV": float(medians.get("offset_keV", table.get("offset_keV", 0.0))),
+               "keV_per_channel": float(gain),
+               "quadratic_keV": float(table.get("quadratic_keV", 0.0))}
+    except (TypeError, ValueError):
+        return {}, ""
+    sampled = [n for n in ("gain_keV", "offset_keV") if n in medians]
+    source = ("posterior median of " + " and ".join(sampled) + ", the rest from the run file"
+              if sampled else "the run file's [calibration]")
+    return cal, source
 
 
 def _per_parameter(diag: dict, keys, n: int):
@@ -511,12 +477,12 @@ def _per_parameter(diag: dict, keys, n: int):
 
 
 def _fmt(value) -> str:
-    """A number for the markdown table: 4 significant digits, blank for missing."""
+    """A number for the markdown table and the printed summary: 4 significant digits."""
     if value is None:
-        return ""
+        return "-"
     value = float(value)
     if not math.isfinite(value):
-        return ""
+        return "n/a"
     return f"{value:.4g}"
 
 
@@ -525,15 +491,18 @@ def _convergence_verdict(data: ReportData) -> tuple[bool, str]:
     diag = data.diagnostics
     if not diag:
         return False, "the file has no convergence diagnostics; treat every interval as unverified"
-    tau = _per_parameter(diag, ("autocorr_time", "tau", "autocorrelation_time"),
-                         len(data.parameter_names))
+    tau = _per_parameter(diag, ("autocorr_time",), len(data.parameter_names))
     steps = diag.get("steps")
+    multiple = float(diag.get("tau_multiple", 50.0))
     detail = ""
-    if tau is not None and steps is not None and np.all(np.isfinite(tau)):
-        ratio = float(np.asarray(steps).item()) / float(np.max(tau))
-        detail = (f" (chain length {int(np.asarray(steps).item())} steps = {ratio:.1f} times "
-                  f"the longest autocorrelation time {float(np.max(tau)):.3g} steps; "
-                  "at least 50 is asked for)")
+    if tau is not None and steps is not None and np.all(np.isfinite(tau)) and np.max(tau) > 0:
+        n = int(np.asarray(steps).item())
+        ratio = n / float(np.max(tau))
+        detail = (f" (chain of {n} steps = {ratio:.1f} times the longest autocorrelation time, "
+                  f"{float(np.max(tau)):.3g} steps; {multiple:g} times is asked for)")
+    if diag.get("interrupted") in (True, 1) or bool(np.asarray(diag.get("interrupted",
+                                                                        False)).any()):
+        detail += "; the run was interrupted"
     if data.converged is False:
         return False, "the sampler did not converge" + detail
     if data.converged is None:
@@ -541,20 +510,29 @@ def _convergence_verdict(data: ReportData) -> tuple[bool, str]:
     return True, "converged" + detail
 
 
-def format_summary_text(data: ReportData) -> str:
-    """The short plain-text summary the command prints (a few lines)."""
+def format_summary_text(data: ReportData, *, compact: bool = False) -> str:
+    """The plain-text summary the command prints: verdict, then one line per quantity.
+
+    Parameters
+    ----------
+    data : ReportData
+        What was read from the result file.
+    compact : bool, optional
+        Leave out derived quantities whose draws equal a parameter's (a layer's areal density
+        stored again under /derived), so the printed list stays short.
+    """
     ok, reason = _convergence_verdict(data)
     lines = []
     if not ok:
         lines.append(f"WARNING: NOT CONVERGED: {reason}.")
-    lines.append(f"result: {data.path}")
-    width = max((len(q.name) for q in data.quantities), default=8)
-    for q in data.quantities:
+    lines.append(f"{data.path.name}: median [68 % interval] [95 % interval]")
+    shown = [q for q in data.quantities if not (compact and _repeats_parameter(data, q))]
+    width = max((len(q.name) for q in shown), default=8)
+    for q in shown:
         s = q.stats
-        unit = f" {q.unit}" if q.unit else ""
-        lines.append(f"  {q.name:<{width}}  {_fmt(s['median'])}{unit}  "
-                     f"68 %: [{_fmt(s['lower_68'])}, {_fmt(s['upper_68'])}]  "
-                     f"95 %: [{_fmt(s['lower_95'])}, {_fmt(s['upper_95'])}]")
+        lines.append(f"  {q.name:<{width}}  {_fmt(s['median']):>9}  "
+                     f"[{_fmt(s['lower_68'])}, {_fmt(s['upper_68'])}]  "
+                     f"[{_fmt(s['lower_95'])}, {_fmt(s['upper_95'])}]  {q.unit}".rstrip())
     for w in data.warnings:
         lines.append(f"warning: {w}")
     if ok:
@@ -562,8 +540,19 @@ def format_summary_text(data: ReportData) -> str:
     return "\n".join(lines)
 
 
+def _repeats_parameter(data: ReportData, q: Quantity) -> bool:
+    """True for a derived quantity whose draws are exactly one parameter's draws."""
+    if q.kind != "derived" or q.draws is None:
+        return False
+    return any(p.kind == "parameter" and p.draws is not None and np.array_equal(p.draws, q.draws)
+               for p in data.quantities)
+
+
 def write_summary_csv(data: ReportData, path: Path) -> Path:
-    """Write summary.csv: one row per quantity, columns :data:`SUMMARY_COLUMNS`."""
+    """Write summary.csv: one row per quantity, columns :data:`SUMMARY_COLUMNS`.
+
+    Numbers are written in full precision (``repr``); a missing or NaN value is an empty cell.
+    """
     with Path(path).open("w", newline="") as fh:
         writer = csv.writer(fh)
         writer.writerow(SUMMARY_COLUMNS)
@@ -579,31 +568,26 @@ def write_summary_csv(data: ReportData, path: Path) -> Path:
 
 
 def _provenance_lines(data: ReportData) -> list[str]:
-    prov = data.provenance
+    prov = {k: v for k, v in data.provenance.items() if not k.startswith("_")}
     lines = []
-    preferred = ("program", "program_version", "version", "seed", "command", "started",
-                 "start_time", "finished", "end_time")
+    preferred = ("program", "version", "program_version", "emcee_version", "seed", "command",
+                 "started", "resumed", "finished", "status")
     for key in preferred:
         if key in prov:
             lines.append(f"- {key.replace('_', ' ')}: `{_text(prov[key])}`")
-    hashes = []
     for key, value in prov.items():
-        if "hash" in key.lower() or "sha" in key.lower():
-            text = _text(value)
-            try:
-                loaded = json.loads(text)
-            except ValueError:
-                loaded = None
-            if isinstance(loaded, dict):
-                hashes += [f"  - {k}: `{v}`" for k, v in loaded.items()]
-            else:
-                hashes.append(f"  - {key}: `{text}`")
+        if key not in preferred:
+            lines.append(f"- {key.replace('_', ' ')}: `{_text(value)}`")
+    hashes = dict(data.provenance.get("_input_hashes", {}))
     for key, value in prov.items():
-        if key in preferred or "hash" in key.lower() or "sha" in key.lower():
-            continue
-        lines.append(f"- {key.replace('_', ' ')}: `{_text(value)}`")
-    lines.append("- input file hashes:" if hashes else "- input file hashes: not recorded")
-    lines += hashes
+        if "hash" in key.lower():
+            hashes[key] = _text(value)
+    if hashes:
+        lines.append("- input fingerprints (compare with `sha256sum` of your run file; the "
+                     "spectrum's is of its stored counts):")
+        lines += [f"  - {k}: `{v}`" for k, v in hashes.items()]
+    else:
+        lines.append("- input fingerprints: not recorded")
     return lines
 
 
@@ -613,13 +597,13 @@ def write_summary_md(data: ReportData, path: Path, figures: dict[str, Path]) -> 
     out = []
     if not ok:
         out += ["> **WARNING: NOT CONVERGED.** " + reason[0].upper() + reason[1:] + ".",
-                "> The medians and intervals below are not yet trustworthy: run the sampler "
-                "longer (resume the same file) and make the report again.", ""]
+                "> The medians and intervals below are not yet trustworthy: continue the run "
+                "(resume the same file with more steps) and make the report again.", ""]
     out += [f"# Posterior summary: {data.path.name}", ""]
     out += ["Medians with central credible intervals: the 68 % interval lies between the 16 % "
             "and 84 % posterior quantiles, the 95 % interval between the 2.5 % and 97.5 % "
             "quantiles.", ""]
-    header = ("| quantity | unit | median | 68 % interval | 95 % interval | mean | sd | prior |")
+    header = "| quantity | unit | median | 68 % interval | 95 % interval | mean | sd | prior |"
     rule = "|---|---|---:|---|---|---:|---:|---|"
     for kind, title in (("parameter", "Sampled parameters"), ("derived", "Derived quantities")):
         rows = [q for q in data.quantities if q.kind == kind]
@@ -628,22 +612,26 @@ def write_summary_md(data: ReportData, path: Path, figures: dict[str, Path]) -> 
         out += [f"## {title}", "", header, rule]
         for q in rows:
             s = q.stats
-            prior = q.prior or ("(from the parameters)" if kind == "derived" else "not recorded")
+            prior = q.prior or ("(follows from the parameters)" if kind == "derived"
+                                else "not recorded")
             out.append(f"| {q.name} | {q.unit or '-'} | {_fmt(s['median'])} | "
                        f"[{_fmt(s['lower_68'])}, {_fmt(s['upper_68'])}] | "
                        f"[{_fmt(s['lower_95'])}, {_fmt(s['upper_95'])}] | {_fmt(s['mean'])} | "
                        f"{_fmt(s['sd'])} | {prior} |")
         out.append("")
-    if data.derived_notes:
-        out += ["Notes on derived quantities:", ""] + [f"- {n}" for n in data.derived_notes] + [""]
+        noted = [q for q in rows if q.note]
+        if noted:
+            out += [f"- {q.name}: {q.note}" for q in noted] + [""]
 
     out += ["## Sampler diagnostics", "", f"- verdict: {reason}"]
     diag = data.diagnostics
     if diag:
-        for key in ("steps", "walkers", "burn", "burn_in", "thin"):
+        for key in ("steps", "walkers", "discard", "thin", "tau_multiple"):
             if key in diag:
-                out.append(f"- {key.replace('_', ' ')}: {_text(diag[key])}")
-        acc = diag.get("acceptance_fraction")
+                label = {"discard": "burn-in discarded (steps)", "thin": "thinning (steps)",
+                         "tau_multiple": "chain length asked for (autocorrelation times)"}
+                out.append(f"- {label.get(key, key)}: {_text(diag[key])}")
+        acc = diag.get("acceptance", diag.get("acceptance_fraction"))
         if acc is not None:
             acc = np.asarray(acc, dtype=float).ravel()
             out.append(f"- acceptance fraction: mean {acc.mean():.3f} "
@@ -700,6 +688,11 @@ def build_report(result_path, out_dir=None, *, formats=("png", "svg")) -> dict[s
         When the result file is missing, corrupt or has no posterior draws, or when an image
         format is not one matplotlib writes.
     """
+    return write_report(read_report_data(result_path), out_dir, formats=formats)
+
+
+def write_report(data: ReportData, out_dir=None, *, formats=("png", "svg")) -> dict[str, Path]:
+    """Like :func:`build_report`, for a result already read with :func:`read_report_data`."""
     import matplotlib.pyplot as plt
 
     from . import _plots
@@ -709,9 +702,10 @@ def build_report(result_path, out_dir=None, *, formats=("png", "svg")) -> dict[s
     if bad or not formats:
         raise InputError(f"image format {bad[0] if bad else '(none)'!r} not supported; "
                          "use png, svg or pdf", where="report: formats")
-    data = read_report_data(result_path)
     out = Path(out_dir) if out_dir is not None else \
         data.path.with_name(f"{data.path.stem}_report")
+    if out.exists() and not out.is_dir():
+        raise InputError("output path is a file; give a folder with -o", where=str(out))
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -739,6 +733,12 @@ def build_report(result_path, out_dir=None, *, formats=("png", "svg")) -> dict[s
                 written[f"{name}.{fmt}"] = target
         finally:
             plt.close(fig)
+    if data.calibration_source and "spectrum" not in skipped:
+        data.report_notes.append("energy axis of the spectrum figure: "
+                                 + data.calibration_source)
+    if data.window is not None and not data.window.all() and "spectrum" not in skipped:
+        data.report_notes.append("spectrum residuals are shown only inside the fitted window "
+                                 f"({int(data.window.sum())} of {data.window.size} channels)")
     if skipped:
         data.report_notes.append("figures not drawn, as the file lacks their data: "
                                  + ", ".join(skipped))

@@ -1,18 +1,19 @@
 """A builder of small synthetic result files for the report tests.
 
 The scenario is invented for testing only: a zinc oxide film with a few percent yttrium on a
-silicon substrate, four sampled parameters.  The chain is a real emcee run (with emcee's own
-HDF5 backend writing ``/mcmc``) on a known Gaussian posterior, so the diagnostics are honest;
-profiles and spectra are simple smooth shapes computed from the draws, not a physics model.
-Only the layout of the file matters here: it follows the result-file layout that the report
-reads (``/input``, ``/posterior``, ``/derived``, ``/profile``, ``/spectrum``, ``/mcmc``,
-``/diagnostics``).
+silicon substrate.  The chain is a real emcee run on a known Gaussian posterior (so the
+autocorrelation times and the converged flag are honest), stored in emcee's own HDF5 backend
+layout under ``/mcmc``; profiles and spectra are smooth shapes computed from the draws, not a
+physics model.  The file is written with the result store's own writers
+(:func:`inversion._store.write_input`, :func:`~inversion._store.write_groups`,
+:func:`~inversion._store.summarise`) and group trees shaped like those of
+``inversion._api.finalise``, so its layout is the real one.
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
+import math
+import warnings
 from pathlib import Path
 
 import emcee
@@ -20,26 +21,36 @@ import h5py
 import numpy as np
 from scipy.special import erfc
 
-__all__ = ["build_result", "PARAMETERS", "SPECIES"]
+from inversion._store import (MCMC_GROUP, QUANTILES, set_root_attrs, summarise, write_groups,
+                              write_input)
 
-#: (name, unit, mean, sd, prior text) of the invented posterior.
+__all__ = ["build_result", "PARAMETERS", "SPECIES", "RUN_TEXT"]
+
+#: (name, unit, mean, sd, prior text) of the invented Gaussian posterior.
 PARAMETERS = (
-    ("layer1_areal_density_1e15", "1e15 atoms/cm2", 620.0, 14.0, "uniform(200, 1200)"),
-    ("layer1_fraction_Y", "", 0.045, 0.006, "uniform(0, 0.2)"),
-    ("interface1_width_1e15", "1e15 atoms/cm2", 45.0, 9.0, "uniform(0, 200)"),
-    ("charge_solid_angle_scale", "", 1.0, 0.02, "normal(1, 0.05)"),
+    ("film.areal_density", "1e15 atoms/cm2", 620.0, 14.0, "uniform(62, 1860)"),
+    ("film.mixing", "1e15 atoms/cm2", 45.0, 9.0, "halfnormal(155)"),
+    ("fluence_scale", "", 1.0, 0.02, "normal(1, 0.05)"),
+    ("gain_keV", "keV/channel", 7.2, 0.01, "normal(7.2, 0.036)"),
+    ("offset_keV", "keV", 95.0, 1.5, "normal(95, 2)"),
 )
 SPECIES = ("Zn", "Y", "O", "Si")
-
+#: Invented film composition (atom fractions of Zn, Y, O).
+_FILM = {"Zn": 0.48, "Y": 0.02, "O": 0.50}
 #: Invented atomic densities (atoms/cm3) of the film and the substrate, for depths in nm.
 _FILM_ATOMS_CM3 = 8.0e22
 _SUBSTRATE_ATOMS_CM3 = 5.0e22
 
-_RUN_TEXT = """# invented test scenario: yttrium-doped zinc oxide on silicon
-title = "invented Y:ZnO film on Si (test only)"
+RUN_TEXT = """# invented test scenario: yttrium-doped zinc oxide on silicon (not a real sample)
+title = "invented Y:ZnO film on Si, test only"
+
 [beam]
 ion = "4He"
-energy_keV = 2000
+energy_keV = 2000.0
+
+[calibration]
+keV_per_channel = 7.2
+offset_keV = 95.0
 """
 
 
@@ -48,63 +59,75 @@ def _log_prob(x, mean, sd):
 
 
 def _nm_per_1e15(atoms_cm3: float) -> float:
-    """Thickness in nm of 1e15 atoms/cm2 at a given atomic density."""
+    """Thickness in nm of 1e15 atoms/cm2 at the given atomic density (atoms/cm3)."""
     return 1e15 / atoms_cm3 * 1e7
 
 
-def _fractions(depth, areal, y, width):
-    """Atom fractions (species x depth) of a draw: film (Zn1-yYy)O over Si, erf interface."""
+def _fractions(depth, areal, width):
+    """Atom fractions (draws, slices, species) of a film over Si with an erf interface."""
     f = 0.5 * erfc((depth[None, :] - areal[:, None]) / (np.sqrt(2.0) * width[:, None]))
-    return np.stack([0.5 * f * (1 - y[:, None]), 0.5 * f * y[:, None], 0.5 * f, 1 - f])
+    return np.stack([_FILM["Zn"] * f, _FILM["Y"] * f, _FILM["O"] * f, 1 - f], axis=-1)
 
 
-def _species_spectra(channel, areal, y, scale):
-    """Toy per-species spectra (species x draws x channels): smooth plateaus and edges."""
+def _species_spectra(channel, areal, scale):
+    """Toy per-species counts (draws, channels, species): smooth plateaus and an edge."""
     def plateau(edge, height, width_channels):
-        lo = edge - width_channels[:, None]
         rise = 0.5 * erfc((channel[None, :] - edge) / 2.5)
-        fall = 0.5 * erfc((lo - channel[None, :]) / 3.0)
+        fall = 0.5 * erfc((edge - width_channels[:, None] - channel[None, :]) / 3.0)
         return height * rise * fall
 
     w = areal / 12.0
-    zn = plateau(200.0, 160.0, w) * (1 - y[:, None]) / 0.955
-    yy = plateau(214.0, 160.0 * 1.9, w) * y[:, None] / 0.955
+    zn = plateau(200.0, 160.0, w)
+    yy = plateau(214.0, 13.0, w)
     o = plateau(75.0, 18.0, w)
-    si_edge = 128.0 - w[:, None]
-    si = 55.0 * 0.5 * erfc((channel[None, :] - si_edge) / 3.0) * (1 + 0.004 * (si_edge -
-                                                                            channel[None, :]))
-    return np.stack([zn, yy, o, np.clip(si, 0, None)]) * scale[None, :, None]
+    edge = 128.0 - w[:, None]
+    si = 55.0 * 0.5 * erfc((channel[None, :] - edge) / 3.0) * np.clip(
+        1 + 0.004 * (edge - channel[None, :]), 0, None)
+    return np.stack([zn, yy, o, si], axis=-1) * scale[:, None, None]
 
 
-def build_result(path, *, steps=3000, walkers=16, seed=7, with_depth_nm=True,
-                 with_diagnostics=True, draws_for_bands=400) -> Path:
-    """Write a small result file and return its path.
+def build_result(path, *, steps=4000, walkers=16, seed=7, with_density=True,
+                 with_diagnostics=True, band_draws=300) -> Path:
+    """Write a small result file with the store's layout and return its path.
 
     Parameters
     ----------
     path : str or pathlib.Path
-        File to create (overwritten).
+        File to create (replaced if present).
     steps : int
-        emcee steps; 3000 converge by the 50-autocorrelation-times rule, 60 do not.
+        emcee steps; 4000 pass the 50-autocorrelation-times rule here, 60 do not.
     walkers : int
         emcee walkers.
     seed : int
         Seed of every random draw.
-    with_depth_nm : bool
-        Write ``/profile/depth_nm`` and the derived thicknesses in nm.
+    with_density : bool
+        When False, the film has no density: ``film.thickness_nm`` is NaN with a note and
+        ``/profile/depth_nm`` is absent (as the store writes it).
     with_diagnostics : bool
         Write ``/diagnostics``.
-    draws_for_bands : int
-        Posterior draws used for profile and predictive quantiles.
+    band_draws : int
+        Posterior draws used for the profile and predictive quantiles.
     """
     path = Path(path)
     if path.exists():
         path.unlink()
     rng = np.random.default_rng(seed)
     names = [p[0] for p in PARAMETERS]
+    units = [p[1] for p in PARAMETERS]
     mean = np.array([p[2] for p in PARAMETERS])
     sd = np.array([p[3] for p in PARAMETERS])
     ndim = len(names)
+    priors = [f"{p[0]} [{p[1] or '1'}]: {p[4]}" for p in PARAMETERS]
+
+    channel = np.arange(256)
+    truth = _species_spectra(channel.astype(float), mean[[0]], mean[[2]]).sum(axis=-1)[0]
+    counts = rng.poisson(truth).astype(float)
+    write_input(path, run_text=RUN_TEXT, counts=counts, measured=np.ones(counts.size, bool),
+                priors=priors,
+                attrs=dict(program="sondage", version="0.1.0", seed=seed,
+                           command="invert('invented_run.toml', seed=7) [test helper]",
+                           started="2026-01-01T00:00:00+00:00", status="running",
+                           emcee_version=emcee.__version__, profile_model="layers"))
 
     sampler = emcee.EnsembleSampler(walkers, ndim, _log_prob, args=(mean, sd))
     sampler.random_state = np.random.RandomState(seed).get_state()
@@ -112,121 +135,110 @@ def build_result(path, *, steps=3000, walkers=16, seed=7, with_depth_nm=True,
     sampler.run_mcmc(start, steps, progress=False)
     chain = sampler.get_chain()
     log_prob = sampler.get_log_prob()
-    accepted = sampler.backend.accepted
-    # emcee's own HDF5 backend lays out /mcmc; the chain is then stored in one write rather
-    # than one write per step, which keeps the helper fast.
-    backend = emcee.backends.HDFBackend(str(path), name="mcmc")
+    # emcee's own HDF5 backend lays out /mcmc; the chain goes in with one write instead of
+    # one write per step, which keeps the helper fast.
+    backend = emcee.backends.HDFBackend(str(path), name=MCMC_GROUP)
     backend.reset(walkers, ndim)
     with h5py.File(path, "a") as f:
-        g = f["mcmc"]
+        g = f[MCMC_GROUP]
         g["chain"].resize(steps, axis=0)
         g["chain"][:] = chain
         g["log_prob"].resize(steps, axis=0)
         g["log_prob"][:] = log_prob
-        g["accepted"][:] = accepted
+        g["accepted"][:] = sampler.backend.accepted
         g.attrs["iteration"] = steps
+        g.attrs["parameter_names"] = names
+        g.attrs["parameter_units"] = units
 
-    burn = steps // 4
-    samples = chain[burn:].reshape(-1, ndim)
-    tau = emcee.autocorr.integrated_time(chain, tol=0)
-    converged = bool(steps > 50 * tau.max())
-    acceptance = accepted / steps
-    ess = samples.shape[0] / tau
+    tau = emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True)
+    tau_max = float(np.max(tau))
+    converged = bool(steps >= 50.0 * tau_max)
+    discard = int(min(math.ceil(3 * tau_max), steps // 2))
+    thin = max(1, int(tau_max / 2))
+    samples = chain[discard::thin].reshape(-1, ndim)
+    logp = log_prob[discard::thin].reshape(-1)
+    areal, mixing, scale = samples[:, 0], samples[:, 1], samples[:, 2]
 
-    areal, y, width, scale = samples.T
+    nm_film = _nm_per_1e15(_FILM_ATOMS_CM3) if with_density else math.nan
     derived = {
-        "layer1/areal_density_1e15": (areal, "1e15 atoms/cm2"),
-        "interface1/width_1e15": (width, "1e15 atoms/cm2"),
-        "element/Zn_areal_density_1e15": (0.5 * (1 - y) * areal, "1e15 atoms/cm2"),
-        "element/Y_areal_density_1e15": (0.5 * y * areal, "1e15 atoms/cm2"),
-        "element/O_areal_density_1e15": (0.5 * areal, "1e15 atoms/cm2"),
+        "film.areal_density": (areal, "1e15 atoms/cm2"),
+        "film.thickness_nm": (areal * nm_film, "nm"),
+        "film.mixing": (mixing, "1e15 atoms/cm2"),
+        "film.mixing_nm": (mixing * nm_film, "nm"),
+        "total.Zn": (_FILM["Zn"] * areal, "1e15 atoms/cm2"),
+        "total.Y": (_FILM["Y"] * areal, "1e15 atoms/cm2"),
+        "total.O": (_FILM["O"] * areal, "1e15 atoms/cm2"),
     }
-    if with_depth_nm:
-        derived["layer1/thickness_nm"] = (areal * _nm_per_1e15(_FILM_ATOMS_CM3), "nm")
-        derived["interface1/width_nm"] = (width * _nm_per_1e15(_FILM_ATOMS_CM3), "nm")
+    notes = {} if with_density else {"film.thickness_nm": "no mass density given: NaN"}
+    derived_names = list(derived)
+    derived_draws = np.column_stack([v[0] for v in derived.values()])
+    with warnings.catch_warnings():  # all-NaN columns (no density) warn inside numpy
+        warnings.simplefilter("ignore", RuntimeWarning)
+        summ = summarise(np.column_stack([samples, derived_draws]))
+    groups = {
+        "posterior": {
+            "samples": (samples, {"names": names, "units": units, "discard": discard,
+                                  "thin": thin}),
+            "log_posterior": (logp, {"unit": "natural log"}),
+            "priors": np.array(priors, dtype=object),
+            "summary": {"names": np.array(names + derived_names, dtype=object),
+                        "units": np.array(units + [v[1] for v in derived.values()],
+                                          dtype=object),
+                        **summ,
+                        "@attrs": {"intervals": "central: low68/high68 = 16/84 %, "
+                                                "low95/high95 = 2.5/97.5 % quantiles"}},
+        },
+        "derived": {name: (derived[name][0], {"unit": derived[name][1],
+                                              **({"note": notes[name]} if name in notes
+                                                 else {})})
+                    for name in derived_names},
+    }
 
-    with h5py.File(path, "a") as f:
-        f.attrs["program"] = "sondage"
-        f.attrs["program_version"] = "0.1.0"
-        f.attrs["seed"] = seed
-        f.attrs["command"] = "sondage (test helper) invented_run.toml"
-        f.attrs["started"] = "2026-01-01T00:00:00+00:00"
-        f.attrs["finished"] = "2026-01-01T00:00:05+00:00"
-        f.attrs["input_hashes"] = json.dumps(
-            {"invented_run.toml": "sha256:" + hashlib.sha256(_RUN_TEXT.encode()).hexdigest()})
-
-        inp = f.create_group("input")
-        inp.create_dataset("run", data=_RUN_TEXT)
-
-        post = f.create_group("posterior")
-        ds = post.create_dataset("samples", data=samples)
-        ds.attrs["names"] = names
-        ds.attrs["units"] = [p[1] for p in PARAMETERS]
-        ds.attrs["priors"] = [p[4] for p in PARAMETERS]
-        summary_names = names + [k.replace("/", ".") for k in derived]
-        columns = [samples[:, i] for i in range(ndim)] + [v[0] for v in derived.values()]
-        summ = post.create_group("summary")
-        summ.create_dataset("names", data=summary_names)
-        summ.create_dataset("median", data=[np.quantile(c, 0.5) for c in columns])
-        summ.create_dataset("mean", data=[np.mean(c) for c in columns])
-        summ.create_dataset("sd", data=[np.std(c, ddof=1) for c in columns])
-        summ.create_dataset("ci68", data=[np.quantile(c, [0.16, 0.84]) for c in columns])
-        summ.create_dataset("ci95", data=[np.quantile(c, [0.025, 0.975]) for c in columns])
-
-        der = f.create_group("derived")
-        for key, (values, unit) in derived.items():
-            d = der.create_dataset(key, data=values)
-            d.attrs["units"] = unit
-        if not with_depth_nm:
-            der.attrs["thickness_nm"] = "no layer density given; thicknesses in nm not derived"
-
-        pick = rng.choice(samples.shape[0], size=min(draws_for_bands, samples.shape[0]),
-                          replace=False)
-        best = int(np.argmax(log_prob[burn:].reshape(-1)))
-        depth = np.linspace(0.0, 1200.0, 61)[:-1] + 10.0
-        fr = _fractions(depth, areal[pick], y[pick], width[pick])
-        fr_map = _fractions(depth, areal[[best]], y[[best]], width[[best]])[:, 0]
-        prof = f.create_group("profile")
-        prof.create_dataset("depth", data=depth)
-        if with_depth_nm:
-            a50 = np.median(areal)
-            nm = np.where(depth <= a50, depth * _nm_per_1e15(_FILM_ATOMS_CM3),
-                          a50 * _nm_per_1e15(_FILM_ATOMS_CM3)
-                          + (depth - a50) * _nm_per_1e15(_SUBSTRATE_ATOMS_CM3))
-            prof.create_dataset("depth_nm", data=nm)
-        for i, s in enumerate(SPECIES):
-            prof.create_dataset(s, data=np.percentile(fr[i], [2.5, 16, 50, 84, 97.5], axis=0))
-            prof.create_dataset(f"{s}_map", data=fr_map[i])
-
-        channel = np.arange(256, dtype=float)
-        parts = _species_spectra(channel, areal[pick], y[pick], scale[pick])
-        total = parts.sum(axis=0)
-        truth = _species_spectra(channel, mean[[0]], mean[[1]], mean[[3]]).sum(axis=0)[0]
-        counts = rng.poisson(truth)
-        noisy = rng.poisson(total)
-        spec = f.create_group("spectrum")
-        spec.create_dataset("channel", data=channel)
-        spec.create_dataset("counts", data=counts)
-        spec.create_dataset("predictive",
-                            data=np.percentile(noisy, [2.5, 16, 50, 84, 97.5], axis=0))
-        species = spec.create_group("species")
-        for i, s in enumerate(SPECIES):
-            species.create_dataset(s, data=np.median(parts[i], axis=0))
-        spec.attrs["offset_keV"] = 95.0
-        spec.attrs["keV_per_channel"] = 7.2
-        inp.create_dataset("spectrum", data=counts)
-
-        if with_diagnostics:
-            diag = f.create_group("diagnostics")
-            diag.create_dataset("autocorr_time", data=tau)
-            diag.create_dataset("acceptance_fraction", data=acceptance)
-            diag.create_dataset("ess", data=ess)
-            diag.attrs["steps"] = steps
-            diag.attrs["walkers"] = walkers
-            diag.attrs["burn"] = burn
-            diag.attrs["converged"] = converged
-            warnings = [] if converged else [
-                f"chain of {steps} steps is shorter than 50 autocorrelation times "
-                f"({50 * tau.max():.0f} steps); run longer"]
-            diag.attrs["warnings"] = json.dumps(warnings)
+    idx = rng.choice(samples.shape[0], size=min(band_draws, samples.shape[0]), replace=False)
+    edges = np.linspace(0.0, 1200.0, 61)
+    depth = 0.5 * (edges[1:] + edges[:-1])
+    profiles = _fractions(depth, areal[idx], mixing[idx])
+    best = int(np.argmax(logp))
+    fr_map = _fractions(depth, areal[[best]], mixing[[best]])[0]
+    q = np.quantile(profiles, QUANTILES, axis=0)  # (5, slices, species)
+    profile = {"depth": (depth, {"unit": "1e15 atoms/cm2", "description": "slice centres"}),
+               "@attrs": {"quantiles": QUANTILES, "draws": idx.size}}
+    if with_density:
+        a50 = float(np.median(areal))
+        profile["depth_nm"] = (np.where(depth <= a50, depth * nm_film,
+                                        a50 * nm_film + (depth - a50)
+                                        * _nm_per_1e15(_SUBSTRATE_ATOMS_CM3)),
+                               {"unit": "nm"})
+    for j, sp in enumerate(SPECIES):
+        profile[sp] = (q[:, :, j], {"unit": "atom fraction", "quantiles": QUANTILES})
+        profile[f"{sp}_map"] = (fr_map[:, j], {"unit": "atom fraction"})
+    parts = _species_spectra(channel.astype(float), areal[idx], scale[idx])
+    spectra = parts.sum(axis=-1)
+    noisy = rng.poisson(spectra)
+    window = (channel >= 5) & (channel <= 230)
+    groups["profile"] = profile
+    groups["spectrum"] = {
+        "channel": channel, "counts": (counts, {"unit": "counts"}), "window": window,
+        "predictive": (np.quantile(noisy, QUANTILES, axis=0), {"unit": "counts"}),
+        "model_median": (np.median(spectra, axis=0), {"unit": "counts"}),
+        "species": {sp: (np.median(parts[:, :, j], axis=0), {"unit": "counts"})
+                    for j, sp in enumerate(SPECIES)},
+    }
+    messages = [] if converged else [
+        f"NOT CONVERGED: {steps} steps, but 50 x the longest autocorrelation time "
+        f"({tau_max:.1f} steps) is {50 * tau_max:.0f}"]
+    if with_diagnostics:
+        acceptance = np.asarray(sampler.backend.accepted, dtype=float) / steps
+        groups["diagnostics"] = {
+            "autocorr_time": (tau, {"unit": "steps", "names": names}),
+            "acceptance": (acceptance, {"description": "acceptance fraction per walker"}),
+            "ess": (steps * walkers / tau, {"names": names}),
+            "@attrs": {"steps": steps, "converged": converged, "interrupted": False,
+                       "tau_multiple": 50.0, "walkers": walkers, "discard": discard,
+                       "thin": thin, "warnings": messages if messages else ["none"],
+                       "mean_acceptance": float(acceptance.mean())},
+        }
+    write_groups(path, groups)
+    set_root_attrs(path, finished="2026-01-01T00:00:05+00:00",
+                   status="converged" if converged else "not converged")
     return path
