@@ -295,6 +295,14 @@ def _invented_step_spectrum(run_, edge_keV, n_channels=1024, height=800.0, seed=
     return rng.poisson(mean).astype(float)
 
 
+def _edge_offset_channels(out):
+    import re
+
+    m = re.search(r"leading edge in the counts: channel [-0-9.]+ \(([-+0-9.]+) channels", out)
+    assert m, out
+    return float(m.group(1))
+
+
 def test_check_finds_the_edge_in_a_matching_spectrum(capsys, tmp_path, invented_run):
     k = forward.kinematic_factor(forward.ion("4He").mass_u, forward.element("Hf").mass_u, 170.0)
     counts = _invented_step_spectrum(invented_run, k * 1800.0)
@@ -307,6 +315,7 @@ def test_check_finds_the_edge_in_a_matching_spectrum(capsys, tmp_path, invented_
     assert "coverage: yes" in out
     assert "agrees" in out and "DOES NOT AGREE" not in out
     assert "No problems found." in out
+    assert abs(_edge_offset_channels(out)) < 0.5
 
 
 def test_check_flags_a_shifted_spectrum(capsys, tmp_path, invented_run):
@@ -320,6 +329,7 @@ def test_check_flags_a_shifted_spectrum(capsys, tmp_path, invented_run):
     assert code == 0
     assert "DOES NOT AGREE" in out
     assert "check the calibration" in out
+    assert _edge_offset_channels(out) == pytest.approx(-150.0 / 1.8, abs=0.5)
 
 
 def test_check_flags_a_short_spectrum(capsys, tmp_path, invented_run):
