@@ -93,7 +93,7 @@ def broadening_table(step_u: float = 1.0 / 64.0, half_width: float = BROADENING_
     return u * cdf + pdf, cdf
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _step_F(x, inv_s, s, ftab, fder, u_max, inv_du, du):
     """``F(x) = s f(x/s)`` from the table (see :func:`broadening_table`)."""
     u = x * inv_s
@@ -115,7 +115,7 @@ def _step_F(x, inv_s, s, ftab, fder, u_max, inv_du, du):
     return s * (h00 * ftab[i] + h10 * du * fder[i] + h01 * ftab[i + 1] + h11 * du * fder[i + 1])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def step_integral_table_eval(x, s, ftab, fder, u_max, du):
     """``F(x) = s f(x / s)`` for an array ``x`` (exposed for the interpolation-error test)."""
     out = np.empty(x.size)
@@ -124,29 +124,57 @@ def step_integral_table_eval(x, s, ftab, fder, u_max, du):
     return out
 
 
-@njit(cache=True)
-def _add_step(out, plateau, row, edges, e, s, amp, ftab, fder, u_max, inv_du, du):
-    """Add a Gaussian-smoothed step of height ``amp`` at energy ``e`` to ``out[row]``."""
+@njit(cache=True, error_model="numpy")
+def _hermite_coefficients(ftab, fder, du):
+    """Per table interval, the cubic ``c0 + c1 t + c2 t^2 + c3 t^3`` of the Hermite interpolant."""
+    n = ftab.size - 1
+    coef = np.empty((n, 4))
+    for i in range(n):
+        y0, y1 = ftab[i], ftab[i + 1]
+        m0, m1 = du * fder[i], du * fder[i + 1]
+        coef[i, 0] = y0
+        coef[i, 1] = m0
+        coef[i, 2] = 3.0 * (y1 - y0) - 2.0 * m0 - m1
+        coef[i, 3] = 2.0 * (y0 - y1) + m0 + m1
+    return coef
+
+
+@njit(cache=True, error_model="numpy")
+def _add_step(out, plateau, row, edges, e, s, amp, ftab, fder, u_max, inv_du, du, coef):
+    """Add a Gaussian-smoothed step of height ``amp`` at energy ``e`` to ``out[row]``.
+
+    Channel ``k`` gets ``amp * (F(edges[k+1] - e) - F(edges[k] - e))``; edges strictly inside
+    ``e +- u_max s`` use the table, the two outer ones the exact limits (0 below, ``x`` above).
+    """
     n_ch = edges.size - 1
     half = u_max * s
-    kl = np.searchsorted(edges, e - half, side="right")
-    kh = np.searchsorted(edges, e + half, side="left")
-    k0 = kl - 1
-    if k0 < 0:
-        k0 = 0
+    kl = np.searchsorted(edges, e - half, side="right")  # first edge inside the window
+    kh = np.searchsorted(edges, e + half, side="left")   # first edge at or above the window
+    k0 = kl - 1 if kl > 0 else 0
     k1 = kh if kh < n_ch else n_ch
-    inv_s = 1.0 / s
     if k0 < k1:
+        inv_s = 1.0 / s
+        top = coef.shape[0] - 1
         f_lo = _step_F(edges[k0] - e, inv_s, s, ftab, fder, u_max, inv_du, du)
+        last = k1 - 1 if kh <= n_ch else k1
         for k in range(k0, k1):
-            f_hi = _step_F(edges[k + 1] - e, inv_s, s, ftab, fder, u_max, inv_du, du)
+            x = edges[k + 1] - e
+            if k < last:
+                pos = (x * inv_s + u_max) * inv_du
+                ii = int(pos)
+                if ii > top:
+                    ii = top
+                t = pos - ii
+                f_hi = s * (coef[ii, 0] + t * (coef[ii, 1] + t * (coef[ii, 2] + t * coef[ii, 3])))
+            else:
+                f_hi = _step_F(x, inv_s, s, ftab, fder, u_max, inv_du, du)
             out[row, k] += amp * (f_hi - f_lo)
             f_lo = f_hi
     if kh < n_ch:
         plateau[row, kh] += amp
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, W, dW, scale):
     """Bragg-rule mixture at one energy: S, S', S'' (keV per 1e15, scaled) and W, W'."""
     pos = (energy - tab_e0) * tab_inv_step
@@ -182,7 +210,7 @@ def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, 
     return s0, s1, s2, w0, w1
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                     tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
                     iso_species, iso_k, iso_weight, e2sigma,
@@ -252,6 +280,7 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
     n_rows = n_species if per_species else 1
     out = np.zeros((n_rows, n_ch))
     plateau = np.zeros((n_rows, n_ch))
+    coef = _hermite_coefficients(ftab, fder, du)
     inv_du = 1.0 / du
     tab_inv_step = 1.0 / tab_step_keV
     sig_det2 = sigma_det_keV * sigma_det_keV
@@ -397,14 +426,14 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                     h_here = y_prev[q] / width
                 if has_edge[q]:
                     _add_step(out, plateau, row, edges_keV, e_prev[q], s_prev[q],
-                              h_before[q] - h_here, ftab, fder, u_max, inv_du, du)
+                              h_before[q] - h_here, ftab, fder, u_max, inv_du, du, coef)
                 e_prev[q] = e_j
                 s_prev[q] = s_j
                 h_before[q] = h_here
                 has_edge[q] = True
                 if final or below:
                     _add_step(out, plateau, row, edges_keV, e_j, s_j, h_here,
-                              ftab, fder, u_max, inv_du, du)
+                              ftab, fder, u_max, inv_du, du, coef)
                     has_edge[q] = False
                     h_before[q] = 0.0
                     if below:
@@ -414,7 +443,7 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
             else:
                 if has_edge[q]:
                     _add_step(out, plateau, row, edges_keV, e_prev[q], s_prev[q], h_before[q],
-                              ftab, fder, u_max, inv_du, du)
+                              ftab, fder, u_max, inv_du, du, coef)
                     has_edge[q] = False
                     h_before[q] = 0.0
             if final:
