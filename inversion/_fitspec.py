@@ -17,7 +17,7 @@ from forward import InputError
 
 from ._priors import Prior, make_prior, parse_prior
 
-__all__ = ["Parameter", "LayerInfo", "FitSpec", "parse_fit", "layer_infos", "NUISANCE_NAMES",
+__all__ = ["Parameter", "LayerInfo", "FitSpec", "parse_fit", "layer_infos", "depth_limit_of", "NUISANCE_NAMES",
            "DEFAULT_STOPPING_SD"]
 
 #: Relative sd of the per-element stopping scale prior.  Placeholder until the measured spread
@@ -40,6 +40,7 @@ _TOP_KEYS = {
     "band_draws": "posterior draws used for bands and predictive spectra (>= 10)",
     "nodes": "table for profile = 'nodes'",
     "moves": "'stretch' or 'differential'",
+    "depth_limit_1e15": "depth of the model's slice grid (1e15 atoms/cm2, > 0)",
 }
 _NODE_KEYS = {
     "count": "number of nodes, 3 to 60",
@@ -109,6 +110,7 @@ class FitSpec:
     walkers: int = 0
     band_draws: int = 200
     moves: str = "stretch"
+    depth_limit_1e15: float | None = None
     nodes: dict = field(default_factory=dict)
     share_species: dict = field(default_factory=dict)  # layer index -> species columns
 
@@ -147,8 +149,15 @@ def layer_infos(run, species: tuple) -> list:
     for i, layer in enumerate(run.layers):
         name = str(getattr(layer, "name", None) or f"layer{i + 1}")
         comp = np.zeros(len(species))
+        overrides = dict(getattr(layer, "isotopes", None) or {})
         for symbol, frac in dict(layer.fractions).items():
-            col = _species_column(str(symbol), species)
+            col = None
+            if symbol in overrides and overrides[symbol]:
+                # the forward model labels an enriched element by its main isotope, "O[18]"
+                iso = overrides[symbol]
+                col = _species_column(f"{symbol}[{max(iso, key=iso.get)}]", species)
+            if col is None:
+                col = _species_column(str(symbol), species)
             if col is None:
                 raise InputError(f"layer {name!r} has {symbol!r}, which is not among the model's "
                                  f"species {list(species)}", where="run file: layers")
@@ -162,6 +171,13 @@ def layer_infos(run, species: tuple) -> list:
         out.append(LayerInfo(name, comp, None if sub or t is None else float(t), sub,
                              None if rho is None else float(rho), None if n is None else float(n)))
     return out
+
+
+def depth_limit_of(fit) -> float | None:
+    """The ``fit.depth_limit_1e15`` setting, checked, before the model is built."""
+    if isinstance(fit, dict) and "depth_limit_1e15" in fit:
+        return _number(fit["depth_limit_1e15"], "depth_limit_1e15", low=0, low_inclusive=False)
+    return None
 
 
 def _where(key: str) -> str:
@@ -243,6 +259,9 @@ def parse_fit(fit: dict | None, run, model) -> FitSpec:
         raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential'",
                          where=_where("moves"))
     spec.moves = moves
+    if "depth_limit_1e15" in fit:
+        spec.depth_limit_1e15 = _number(fit["depth_limit_1e15"], "depth_limit_1e15", low=0,
+                                        low_inclusive=False)
 
     n_channels = int(getattr(model, "n_channels", 0) or 0)
     if "windows" in fit:

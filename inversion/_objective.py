@@ -38,19 +38,24 @@ class ModelBuilder:
         Channels of the measured spectrum.
     base_dir : str, optional
         Folder against which paths inside the run file are resolved.
+    depth_limit_1e15 : float, optional
+        Depth of the slice grid (default: the forward model's own choice).
     """
 
-    def __init__(self, run_text: str, source: str, n_channels: int, base_dir=None):
+    def __init__(self, run_text: str, source: str, n_channels: int, base_dir=None,
+                 depth_limit_1e15=None):
         self.run_text = run_text
         self.source = str(source)
         self.n_channels = int(n_channels)
         self.base_dir = None if base_dir is None else str(base_dir)
+        self.depth_limit_1e15 = depth_limit_1e15
 
     def run(self):
         return forward.parse_run(self.run_text, source=self.source, base_dir=self.base_dir)
 
     def __call__(self):
-        return forward.ForwardModel(self.run(), n_channels=self.n_channels)
+        return forward.ForwardModel(self.run(), n_channels=self.n_channels,
+                                    depth_limit_1e15=self.depth_limit_1e15)
 
 
 def species_mass_u(species: str) -> float:
@@ -278,8 +283,8 @@ class Objective:
         """Sum of the parameters' log prior densities (-inf outside any support)."""
         total = 0.0
         for value, p in zip(theta, self.spec.parameters):
-            lp = p.prior.dist.logpdf(value)
-            if not np.isfinite(lp):
+            lp = p.prior.logpdf(value)
+            if lp == -math.inf or lp != lp:
                 return -np.inf
             total += float(lp)
         return total
@@ -294,7 +299,9 @@ class Objective:
             parts = np.asarray(self.model.expected_counts(fractions, nuisance, per_species=True))
             return parts
         mu = np.asarray(self.model.expected_counts(fractions, nuisance))[self.mask]
-        return mu + background
+        # the kernel's channel integrals are differences of large numbers: clip the round-off
+        # (|mu| ~ 1e-12 counts) below zero, which no Poisson mean can be
+        return np.maximum(mu, 0.0) + background
 
     def log_likelihood(self, theta) -> float:
         """Poisson log-likelihood of the counts in the window (zeros included).

@@ -61,11 +61,71 @@ class Prior:
         return float(low), float(high)
 
     def logpdf(self, x: float) -> float:
-        return float(self.dist.logpdf(x))
+        """Log density at one point, in closed form (the same values as ``dist.logpdf``,
+        checked in tests, at a fraction of the cost of scipy's generic machinery)."""
+        return _LOGPDF[self.kind](float(x), self._consts)
 
-    def in_support(self, x: float) -> bool:
-        low, high = self.dist.support()
-        return bool(low < x < high) if self.kind in ("uniform", "beta") else bool(low <= x <= high)
+    @property
+    def _consts(self):
+        c = self.__dict__.get("_c")
+        if c is None:
+            c = _constants(self.kind, self.args)
+            object.__setattr__(self, "_c", c)
+        return c
+
+
+_LOG_SQRT_2PI = 0.5 * math.log(2.0 * math.pi)
+
+
+def _constants(kind, args):
+    if kind == "uniform":
+        low, high = args
+        return (low, high, -math.log(high - low))
+    if kind == "normal":
+        mean, sd = args
+        return (mean, sd, -math.log(sd) - _LOG_SQRT_2PI)
+    if kind == "lognormal":
+        median, sigma = args
+        return (math.log(median), sigma, -math.log(sigma) - _LOG_SQRT_2PI)
+    if kind == "halfnormal":
+        (scale,) = args
+        return (scale, 0.5 * math.log(2.0 / math.pi) - math.log(scale))
+    a, b = args
+    return (a, b, -(math.lgamma(a) + math.lgamma(b) - math.lgamma(a + b)))
+
+
+def _uniform(x, c):
+    return c[2] if c[0] <= x <= c[1] else -math.inf
+
+
+def _normal(x, c):
+    u = (x - c[0]) / c[1]
+    return c[2] - 0.5 * u * u
+
+
+def _lognormal(x, c):
+    if x <= 0.0:
+        return -math.inf
+    lx = math.log(x)
+    u = (lx - c[0]) / c[1]
+    return c[2] - lx - 0.5 * u * u
+
+
+def _halfnormal(x, c):
+    if x < 0.0:
+        return -math.inf
+    u = x / c[0]
+    return c[1] - 0.5 * u * u
+
+
+def _beta(x, c):
+    if not 0.0 < x < 1.0:
+        return -math.inf
+    return c[2] + (c[0] - 1.0) * math.log(x) + (c[1] - 1.0) * math.log1p(-x)
+
+
+_LOGPDF = {"uniform": _uniform, "normal": _normal, "lognormal": _lognormal,
+           "halfnormal": _halfnormal, "beta": _beta}
 
 
 def make_prior(kind: str, *args: float, where: str | None = None) -> Prior:

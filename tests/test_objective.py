@@ -26,24 +26,24 @@ from inversion._objective import Objective
 @dataclasses.dataclass
 class ToyNuisance:
     fluence_scale: float = 1.0
-    gain_keV: float = 4.0
+    gain_keV: float = 8.0
     offset_keV: float = 40.0
     quadratic_keV: float = 0.0
-    fwhm_keV: float = 16.0
+    fwhm_keV: float = 20.0
     stopping_scale: np.ndarray = dataclasses.field(default_factory=lambda: np.ones(2))
 
 
 class ToyModel:
-    """Two species ("Ge" heavy, "Si" light) on 1e15-atoms/cm2 slices; 300 channels."""
+    """Two species ("Ge" heavy, "Si" light) on 40e15-atoms/cm2 slices; 150 channels."""
 
     species = ("Ge", "Si")
     elements = ("Ge", "Si")
     species_element = np.array([0, 1])
-    surface_keV = np.array([1550.0, 1100.0])   # invented surface energies
+    surface_keV = np.array([1150.0, 800.0])    # invented surface energies
     loss_keV_per_1e15 = 0.25                      # invented energy loss per depth
     yield_per_1e15 = np.array([3.0, 0.8])         # invented counts per 1e15 atoms/cm2
 
-    def __init__(self, run, n_channels=300, slice_1e15=20.0, depth_1e15=2400.0):
+    def __init__(self, run, n_channels=150, slice_1e15=40.0, depth_1e15=2000.0):
         self.run = run
         self.n_channels = n_channels
         edges = np.arange(0.0, depth_1e15 + slice_1e15 / 2, slice_1e15)
@@ -121,7 +121,7 @@ FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
 
 def test_log_likelihood_equals_scipy_poisson_sum():
     obj = toy_objective(FIT)
-    theta = np.array([320.0, 12.0, 1.01, 4.01, 39.0, 15.0])
+    theta = np.array([320.0, 12.0, 1.01, 8.01, 39.0, 19.0])
     assert obj.names == ["film.areal_density", "film.mixing", "fluence_scale", "gain_keV",
                          "offset_keV", "fwhm_keV"]
     mu = obj.expected(theta)
@@ -136,7 +136,7 @@ def test_log_likelihood_equals_scipy_poisson_sum():
 
 def test_log_posterior_is_prior_plus_likelihood_and_gated_by_prior():
     obj = toy_objective(FIT)
-    theta = np.array([320.0, 12.0, 1.01, 4.01, 39.0, 15.0])
+    theta = np.array([320.0, 12.0, 1.01, 8.01, 39.0, 19.0])
     lp = sum(p.prior.dist.logpdf(v) for p, v in zip(obj.spec.parameters, theta))
     assert obj.log_prior(theta) == pytest.approx(lp, rel=1e-12)
     assert obj.log_posterior(theta) == pytest.approx(lp + obj.log_likelihood(theta), rel=1e-12)
@@ -149,7 +149,7 @@ def test_log_posterior_is_prior_plus_likelihood_and_gated_by_prior():
 
 def test_likelihood_switch_off_gives_prior():
     obj = toy_objective(FIT, likelihood=False)
-    theta = np.array([320.0, 12.0, 1.01, 4.01, 39.0, 15.0])
+    theta = np.array([320.0, 12.0, 1.01, 8.01, 39.0, 19.0])
     assert obj.log_posterior(theta) == pytest.approx(obj.log_prior(theta), rel=1e-12)
 
 
@@ -160,7 +160,7 @@ def test_pickles_without_the_model_and_rebuilds_it():
     assert b"ToyModel" not in blob
     assert len(blob) < 60_000
     again = pickle.loads(blob)
-    theta = np.array([320.0, 12.0, 1.01, 4.01, 39.0, 15.0])
+    theta = np.array([320.0, 12.0, 1.01, 8.01, 39.0, 19.0])
     assert again.log_posterior(theta) == obj.log_posterior(theta)
 
 
@@ -169,25 +169,25 @@ def test_default_window_covers_expected_counts_plus_margin():
     model = obj.model
     expected = model.expected_counts(model.layer_fractions())
     above = np.flatnonzero(expected > obj.spec.count_threshold)
-    fwhm_ch = int(np.ceil(16.0 / 4.0))
+    fwhm_ch = int(np.ceil(20.0 / 8.0))
     # upper end: the highest channel above threshold plus 5 FWHM (docs/fit.md)
-    assert obj.channels[-1] == min(above[-1] + 5 * fwhm_ch, 299)
+    assert obj.channels[-1] == min(above[-1] + 5 * fwhm_ch, 149)
     # lower end: clear of the grid's depth limit by 3 FWHM (a substrate is present)
     assert obj.channels[0] == above[0] + 3 * fwhm_ch
     assert np.all(np.diff(obj.channels) == 1)
 
 
 def test_user_windows_and_unmeasured_channels():
-    fit = dict(FIT, windows=[[100, 150], [200, 260]])
+    fit = dict(FIT, windows=[[50, 80], [100, 130]])
     obj = toy_objective(fit)
-    assert obj.channels.tolist() == list(range(100, 151)) + list(range(200, 261))
+    assert obj.channels.tolist() == list(range(50, 81)) + list(range(100, 131))
 
 
 def test_flat_background_adds_counts():
     fit = dict(FIT, background="flat")
     obj = toy_objective(fit)
     assert obj.names[-1] == "background.level"
-    theta = np.array([320.0, 12.0, 1.0, 4.0, 40.0, 16.0, 0.0])
+    theta = np.array([320.0, 12.0, 1.0, 8.0, 40.0, 20.0, 0.0])
     with_bg = theta.copy()
     with_bg[-1] = 2.5
     assert np.allclose(obj.expected(with_bg) - obj.expected(theta), 2.5)
@@ -197,6 +197,6 @@ def test_negative_background_is_outside_the_physical_limits():
     fit = dict(FIT, background="linear", free=dict(FIT["free"], **{
         "background.low": {"normal": [0.0, 1.0]}}))
     obj = toy_objective(fit)
-    theta = np.array([320.0, 12.0, 1.0, 4.0, 40.0, 16.0, -0.5, 1.0])
+    theta = np.array([320.0, 12.0, 1.0, 8.0, 40.0, 20.0, -0.5, 1.0])
     assert obj.unpack(theta) is None
     assert obj.log_posterior(theta) == -np.inf

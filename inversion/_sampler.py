@@ -1,0 +1,288 @@
+"""The sampler: a MAP start, a ball of walkers, emcee until the chain is long enough.
+
+It owns the walkers, the starting points, the moves, the worker pool and the emcee backend;
+the physics and the statistics live in the objective (``_objective``).  Worker processes get
+the objective once, through the pool initializer; each call then ships only a parameter
+vector.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import multiprocessing
+import pickle
+import signal
+from dataclasses import dataclass, field
+
+import emcee
+import numpy as np
+from scipy import optimize
+
+__all__ = ["Sampler", "SamplerStatus", "autocorr_summary", "make_moves", "worker_pool"]
+
+# ----- worker side: one objective per process, set by the pool initializer -----
+_WORKER_OBJECTIVE = None
+
+
+def _init_worker(blob: bytes):
+    global _WORKER_OBJECTIVE
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    _WORKER_OBJECTIVE = pickle.loads(blob)
+    _WORKER_OBJECTIVE.model  # build the forward model once, now
+
+
+def _worker_log_posterior(theta):
+    return _WORKER_OBJECTIVE.log_posterior(theta)
+
+
+def _worker_cost(theta):
+    value = _WORKER_OBJECTIVE.log_posterior(theta)
+    return -value if np.isfinite(value) else 1e300
+
+
+class _LocalCost:
+    def __init__(self, objective):
+        self.objective = objective
+
+    def __call__(self, theta):
+        value = self.objective.log_posterior(theta)
+        return -value if np.isfinite(value) else 1e300
+
+
+@contextlib.contextmanager
+def worker_pool(objective, workers: int):
+    """A pool of ``workers`` processes, each holding its own copy of ``objective``.
+
+    Yields None for ``workers <= 1`` (everything runs in this process).
+    """
+    if workers <= 1:
+        yield None
+        return
+    try:
+        ctx = multiprocessing.get_context("fork")
+    except ValueError:  # pragma: no cover - platforms without fork
+        ctx = multiprocessing.get_context()
+    pool = ctx.Pool(workers, initializer=_init_worker, initargs=(pickle.dumps(objective),))
+    try:
+        yield pool
+    finally:
+        pool.terminate()
+        pool.join()
+
+
+def make_moves(kind: str):
+    """emcee moves by name: ``"stretch"`` (affine-invariant stretch move, Goodman & Weare 2010,
+    Comm. App. Math. Comp. Sci. 5, 65) or ``"differential"`` (differential evolution moves,
+    ter Braak 2006, Stat. Comput. 16, 239, mixed 4:1 with the snooker update, ter Braak &
+    Vrugt 2008, Stat. Comput. 18, 435)."""
+    if kind == "stretch":
+        return emcee.moves.StretchMove()
+    if kind == "differential":
+        return [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+    raise ValueError(f"unknown moves {kind!r}")
+
+
+@dataclass
+class SamplerStatus:
+    """Where a sampling run stands."""
+
+    steps: int
+    converged: bool
+    interrupted: bool
+    tau: np.ndarray
+    acceptance: np.ndarray
+    warnings: list = field(default_factory=list)
+    map_theta: np.ndarray | None = None
+    map_log_posterior: float | None = None
+
+
+def autocorr_summary(chain):
+    """Integrated autocorrelation time per parameter (emcee's estimate, no tolerance check).
+
+    Parameters
+    ----------
+    chain : ndarray, shape (steps, walkers, ndim)
+    """
+    if chain.shape[0] < 2:
+        return np.full(chain.shape[2], np.nan)
+    return np.asarray(emcee.autocorr.integrated_time(chain, c=5, tol=0, quiet=True))
+
+
+class Sampler:
+    """MAP start, walker ball and emcee sampling with a resumable HDF5 backend.
+
+    Parameters
+    ----------
+    objective : Objective
+        Answers ``log_posterior(theta)``; its parameters carry the priors (``spec``).
+    n_walkers : int
+        Number of walkers (at least ``2 * ndim``, even).
+    seed : int
+        Seeds the start search, the walker ball and emcee's random state.
+    backend : emcee.backends.Backend
+        Where the chain goes (an :class:`emcee.backends.HDFBackend` for result files).
+    workers : int
+        Processes evaluating the objective (1: this process only).
+    moves : str
+        ``"stretch"`` or ``"differential"`` (see :func:`make_moves`).
+    """
+
+    #: differential evolution settings for the MAP start
+    START_POPSIZE = 6
+    START_MAXITER = 40
+
+    def __init__(self, objective, *, n_walkers, seed=0, backend=None, workers=1,
+                 moves="stretch"):
+        self.objective = objective
+        self.ndim = objective.ndim
+        if n_walkers < 2 * self.ndim:
+            raise ValueError(f"need at least {2 * self.ndim} walkers, got {n_walkers}")
+        self.n_walkers = int(n_walkers)
+        self.seed = int(seed)
+        self.backend = backend if backend is not None else emcee.backends.Backend()
+        self.workers = int(workers)
+        self.moves = moves
+        self.bounds = [p.prior.bounds() for p in objective.spec.parameters]
+
+    # ----- start -----
+    def find_start(self, pool=None):
+        """Differential evolution inside the prior bounds, then a Nelder-Mead polish.
+
+        Returns
+        -------
+        theta : ndarray (ndim,)
+        log_posterior : float
+        """
+        cost = _LocalCost(self.objective)
+        kwargs = {}
+        if pool is not None:
+            cost = _worker_cost
+            kwargs["workers"] = pool.map
+        result = optimize.differential_evolution(
+            cost, self.bounds, seed=self.seed, popsize=self.START_POPSIZE,
+            maxiter=self.START_MAXITER, tol=1e-4, polish=False, updating="deferred",
+            init="sobol" if self.ndim < 40 else "latinhypercube", **kwargs)
+        local = _LocalCost(self.objective)
+        polished = optimize.minimize(local, result.x, method="Nelder-Mead", bounds=self.bounds,
+                                     options=dict(maxfev=60 * self.ndim, xatol=1e-6,
+                                                  fatol=1e-3))
+        best = polished.x if polished.fun <= result.fun else result.x
+        return np.asarray(best, dtype=float), -float(min(polished.fun, result.fun))
+
+    def initial_walkers(self, theta):
+        """A small ball around ``theta``, every walker inside the prior support."""
+        rng = np.random.default_rng(self.seed + 1)
+        lo = np.array([b[0] for b in self.bounds])
+        hi = np.array([b[1] for b in self.bounds])
+        scale = 1e-4 * (hi - lo)
+        out = np.empty((self.n_walkers, self.ndim))
+        for i in range(self.n_walkers):
+            for attempt in range(200):
+                trial = theta + scale * rng.standard_normal(self.ndim) * 0.5 ** (attempt // 20)
+                if np.isfinite(self.objective.log_posterior(trial)):
+                    break
+            else:
+                raise RuntimeError("could not place a walker with a finite posterior near the "
+                                   "start point")
+            out[i] = trial
+        return out
+
+    # ----- sampling -----
+    def run(self, *, max_steps, tau_multiple=50.0, check_every=200, progress=None,
+            should_stop=None, on_start=None):
+        """Sample until ``steps >= tau_multiple * tau`` for every parameter or ``max_steps``.
+
+        Resumes from the backend when it already holds steps (the stored random state and
+        positions continue the chain exactly).
+
+        Parameters
+        ----------
+        max_steps : int
+            Total steps in the chain (earlier segments included).
+        tau_multiple : float
+            Chain length wanted, in integrated autocorrelation times.
+        check_every : int
+            Steps between convergence checks (at absolute step numbers, so a resumed run
+            checks at the same steps as an uninterrupted one).
+        progress : callable, optional
+            ``progress(steps_done)`` after each step.
+        should_stop : callable, optional
+            Returns True to stop after the current step (Ctrl-C).
+        on_start : callable, optional
+            ``on_start(theta_map, log_posterior_map)`` after a fresh start search.
+
+        Returns
+        -------
+        SamplerStatus
+        """
+        done = int(self.backend.iteration)
+        status = SamplerStatus(steps=done, converged=False, interrupted=False,
+                               tau=np.full(self.ndim, np.nan),
+                               acceptance=np.zeros(self.n_walkers))
+        with worker_pool(self.objective, self.workers) as pool:
+            if done == 0:
+                theta, logp = self.find_start(pool)
+                status.map_theta, status.map_log_posterior = theta, logp
+                if on_start is not None:
+                    on_start(theta, logp)
+                start = emcee.State(self.initial_walkers(theta),
+                                    random_state=np.random.RandomState(self.seed).get_state())
+            else:
+                start = None
+            fn = _worker_log_posterior if pool is not None else self.objective.log_posterior
+            sampler = emcee.EnsembleSampler(self.n_walkers, self.ndim, fn, pool=pool,
+                                            backend=self.backend, moves=make_moves(self.moves))
+            if start is not None:
+                sampler._random.set_state(start.random_state)
+            if done > 0:
+                converged, tau = self._check(sampler, tau_multiple)
+                status.tau = tau
+                if converged and done % check_every == 0:
+                    status.converged = True
+            remaining = max_steps - done
+            if remaining > 0 and not status.converged:
+                for _ in sampler.sample(start, iterations=remaining, progress=False):
+                    step = sampler.iteration
+                    if progress is not None:
+                        progress(step)
+                    if step % check_every == 0 or step == max_steps:
+                        converged, status.tau = self._check(sampler, tau_multiple)
+                        if converged and step % check_every == 0:
+                            status.converged = True
+                            break
+                    if should_stop is not None and should_stop():
+                        status.interrupted = True
+                        break
+            status.steps = int(self.backend.iteration)
+            status.acceptance = (np.asarray(self.backend.accepted) / max(status.steps, 1))
+            if status.steps:
+                status.tau = autocorr_summary(self.backend.get_chain())
+        if not status.converged and not status.interrupted:
+            status.converged = bool(np.all(np.isfinite(status.tau))
+                                    and status.steps >= tau_multiple * np.max(status.tau)
+                                    and status.steps % check_every == 0)
+        return status
+
+    def _check(self, sampler, tau_multiple):
+        tau = autocorr_summary(sampler.get_chain())
+        ok = bool(np.all(np.isfinite(tau)) and sampler.iteration >= tau_multiple * np.max(tau))
+        return ok, tau
+
+
+@contextlib.contextmanager
+def stop_on_interrupt():
+    """Turn Ctrl-C (SIGINT) into a flag checked after each step; yields ``should_stop()``."""
+    flag = {"stop": False}
+
+    def handler(signum, frame):
+        flag["stop"] = True
+
+    try:
+        previous = signal.signal(signal.SIGINT, handler)
+    except ValueError:  # not the main thread: no handler, no clean stop
+        yield lambda: False
+        return
+    try:
+        yield lambda: flag["stop"]
+    finally:
+        signal.signal(signal.SIGINT, previous)
