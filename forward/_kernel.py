@@ -26,7 +26,7 @@ thing and is checked against this one on every test run):
 
 3. **Yield per slice and isotope.**  ``Y = Q Omega sigma(E_mid) n_iso / cos(th1)`` with
    ``n_iso`` the isotope's areal density in the slice and ``sigma`` read from a table of
-   ``E^2 sigma(E)`` at the mean energy of the ion in the slice.
+   ``E^3 sigma(E)`` at the mean energy of the ion in the slice.
 
 4. **Broadening.**  Slice ``j`` puts ``Y`` into a box between the detected energies of its front
    and back edges.  A box of height ``h`` on ``[a, b]`` is ``h (step(a) - step(b))`` and adjacent
@@ -213,7 +213,7 @@ def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, 
 @njit(cache=True, error_model="numpy")
 def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                     tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
-                    iso_species, iso_k, iso_weight, e2sigma,
+                    iso_species, iso_k, iso_weight, e3sigma,
                     energy_keV, inv_cos_in, inv_cos_out, yield_factor,
                     edges_keV, sigma_det_keV, particle_step_keV, floor_keV,
                     ftab, fder, u_max, du, per_species, record):
@@ -243,8 +243,8 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
         Kinematic factor of each isotope.
     iso_weight : (n_iso,) float64
         Fraction of the species' atoms that are this isotope.
-    e2sigma : (n_iso, n_tab) float64
-        ``E^2 sigma(E)``, keV^2 mb/sr, on the table grid.
+    e3sigma : (n_iso, n_tab) float64
+        ``E^3 sigma(E)``, keV^3 mb/sr, on the table grid.
     energy_keV : float
         Beam energy.
     inv_cos_in, inv_cos_out : float
@@ -369,12 +369,12 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
         if pos < 0.0:
             pos = 0.0
         ti = int(pos)
-        if ti >= e2sigma.shape[1] - 1:
-            ti = e2sigma.shape[1] - 2
+        if ti >= e3sigma.shape[1] - 1:
+            ti = e3sigma.shape[1] - 2
         tt = pos - ti
         if tt > 1.0:
             tt = 1.0
-        inv_e2 = 1.0 / (e_mid * e_mid)
+        inv_e3 = 1.0 / (e_mid * e_mid * e_mid)
 
         # edge j for every isotope
         for q in range(n_iso):
@@ -450,8 +450,8 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                 continue
             # yield of slice j for this isotope
             if frac > 0.0:
-                e2s = e2sigma[q, ti] + tt * (e2sigma[q, ti + 1] - e2sigma[q, ti])
-                y_prev[q] = yield_factor * widths_1e15[j] * frac * iso_weight[q] * e2s * inv_e2
+                e3s = e3sigma[q, ti] + tt * (e3sigma[q, ti + 1] - e3sigma[q, ti])
+                y_prev[q] = yield_factor * widths_1e15[j] * frac * iso_weight[q] * e3s * inv_e3
             else:
                 y_prev[q] = 0.0
 

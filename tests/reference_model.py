@@ -69,7 +69,7 @@ class _Tables:
 
 def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_elements,
                               tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
-                              iso_species, iso_k, iso_weight, e2sigma,
+                              iso_species, iso_k, iso_weight, e3sigma,
                               energy_keV, inv_cos_in, inv_cos_out, yield_factor,
                               edges_keV, sigma_det_keV, particle_step_keV, floor_keV,
                               ftab, fder, u_max, du, per_species, record):
@@ -155,8 +155,8 @@ def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_element
                 open_iso[q] = False
                 box_y[q].append(0.0)
                 continue
-            e2s = np.interp(e_mid, tab_e0_keV + tab_step_keV * np.arange(e2sigma.shape[1]), e2sigma[q])
-            box_y[q].append(yield_factor * widths_1e15[j] * frac * iso_weight[q] * e2s / e_mid**2)
+            e3s = np.interp(e_mid, tab_e0_keV + tab_step_keV * np.arange(e3sigma.shape[1]), e3sigma[q])
+            box_y[q].append(yield_factor * widths_1e15[j] * frac * iso_weight[q] * e3s / e_mid**3)
         if final:
             break
 
