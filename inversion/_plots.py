@@ -23,6 +23,7 @@ from ._style import figure_style
 import matplotlib.pyplot as plt  # noqa: E402  (after _style selects the Agg backend)
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
+from matplotlib.ticker import LogFormatter  # noqa: E402
 
 __all__ = [
     "plot_spectrum",
@@ -590,10 +591,18 @@ def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_t
                  label="N / 50")
         axt.set_xscale("log")
         axt.set_yscale("log")
+        for axis in (axt.xaxis, axt.yaxis):  # plain numbers (20, 300), not 2x10^1
+            axis.set_major_formatter(LogFormatter(labelOnlyBase=False))
+            axis.set_minor_formatter(LogFormatter(labelOnlyBase=False,
+                                                  minor_thresholds=(1.5, 0.6)))
         axt.set_xlabel("chain length N (steps)")
         axt.set_ylabel("autocorrelation time estimate (steps)")
         axt.set_title("autocorrelation time on the first N steps", fontsize=9.5)
         axt.legend(loc="lower right", fontsize=7.5)
+        if data is not None and data.converged is False:
+            fig.suptitle("NOT CONVERGED: the chain is shorter than the file's convergence rule "
+                         "asks; see summary.md", color=_style.PALETTE["vermillion"],
+                         fontsize=10.5, fontweight="bold", y=1.02)
         if not math.isfinite(float(np.max(tau))):
             axt.text(0.5, 0.5, "estimate undefined", transform=axt.transAxes, ha="center")
     return fig

@@ -349,25 +349,30 @@ def _read_open_file(f, path: Path) -> ReportData:
         data.quantities.append(Quantity(name, "parameter", units[i], stats,
                                         priors.get(name, ""), samples[:, i]))
 
-    derived_summary = {r[0]: (r[1], r[2]) for r in derived_rows}
-    done = set()
+    # derived quantities: in the summary's order, then any stored draws the summary lacks
+    stored = {}
     if "derived" in f:
         for name, ds in f["derived"].items():
-            if not isinstance(ds, h5py.Dataset) or ds.dtype.kind not in "fiu":
-                continue
-            draws = np.asarray(ds[()], dtype=float).ravel()
-            unit_attr = ds.attrs.get("unit", ds.attrs.get("units"))
-            unit = _text(unit_attr) if unit_attr is not None else \
-                derived_summary.get(name, (unit_from_name(name),))[0]
-            stats = summarise_draws(draws)
-            stats.update(derived_summary.get(name, ("", {}))[1])
-            note = _text(ds.attrs["note"]) if "note" in ds.attrs else ""
-            data.quantities.append(Quantity(name, "derived", unit, stats, "", draws, note))
-            done.add(name)
-    for name, unit, stats in derived_rows:  # summarised but without stored draws
-        if name not in done:
-            full = {k: stats.get(k, math.nan) for k in _STAT_KEYS}
+            if isinstance(ds, h5py.Dataset) and ds.dtype.kind in "fiu":
+                stored[name] = ds
+    order = [r[0] for r in derived_rows] + [n for n in stored if n not in
+                                           {r[0] for r in derived_rows}]
+    derived_summary = {r[0]: (r[1], r[2]) for r in derived_rows}
+    for name in order:
+        unit, summary_stats = derived_summary.get(name, (unit_from_name(name), {}))
+        ds = stored.get(name)
+        if ds is None:  # summarised but without stored draws
+            full = {k: summary_stats.get(k, math.nan) for k in _STAT_KEYS}
             data.quantities.append(Quantity(name, "derived", unit, full))
+            continue
+        draws = np.asarray(ds[()], dtype=float).ravel()
+        unit_attr = ds.attrs.get("unit", ds.attrs.get("units"))
+        if unit_attr is not None:
+            unit = _text(unit_attr)
+        stats = summarise_draws(draws)
+        stats.update(summary_stats)
+        note = _text(ds.attrs["note"]) if "note" in ds.attrs else ""
+        data.quantities.append(Quantity(name, "derived", unit, stats, "", draws, note))
 
     if "profile" in f:
         prof = f["profile"]
