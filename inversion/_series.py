@@ -46,6 +46,7 @@ import math
 import os
 import re
 import sys
+import time
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -487,6 +488,7 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
     todo = [p for p in payloads if member_state(p["member_path"]) != "finished"]
     _write_members(series, output, seed, status="running")
 
+    t_start = time.perf_counter()
     if todo:
         cluster = None
         if scheduler:
@@ -519,8 +521,13 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
     missing = [p["label"] for p in payloads if member_state(p["member_path"]) != "finished"]
     if missing:
         raise RuntimeError(f"members not finished after the run: {', '.join(missing)}")
+    t_members = time.perf_counter() - t_start
     stats = series_statistics(series, output, seed=seed, arrhenius_steps=arrhenius_steps)
     _write_statistics(output, stats)
+    set_wall = {"wall_s_members": t_members,
+                "wall_s_statistics": time.perf_counter() - t_start - t_members}
+    with h5py.File(output, "a") as f:
+        f.attrs.update(set_wall)
     if report:
         series_report(output)
     return output
