@@ -267,8 +267,8 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
 
 
 def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, depth_nm=None,
-                 species=None, show_best_fit=True, label=None, ax=None, figsize=(8.4, 4.6),
-                 title=None):
+                 species=None, show_best_fit=True, log_fraction=False, label=None, ax=None,
+                 figsize=(8.4, 4.6), title=None):
     """Atom fraction of each species against depth, with 68 % and 95 % credible bands.
 
     Parameters
@@ -287,6 +287,8 @@ def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, dep
         Which species to draw (default all, in file order).
     show_best_fit : bool, optional
         Draw the best-fit profile as a thin dashed line.
+    log_fraction : bool, optional
+        Logarithmic atom-fraction axis (from 1e-4), to see minor species and tails.
     label : str, optional
         Prefix for the legend entries (when overplotting).
     ax : matplotlib.axes.Axes, optional
@@ -352,7 +354,11 @@ def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, dep
             ax.set_xlabel(r"depth (10$^{15}$ atoms/cm$^2$)")
             ax.set_ylabel("atom fraction")
             ax.set_xlim(depth[0] if depth[0] <= 0 else 0.0, depth[-1])
-            ax.set_ylim(-0.02, 1.02)
+            if log_fraction:
+                ax.set_yscale("log")
+                ax.set_ylim(1e-4, 1.3)
+            else:
+                ax.set_ylim(-0.02, 1.02)
             functions = _monotone_map(depth, depth_nm) if depth_nm is not None else None
             if functions is not None:
                 top = ax.secondary_xaxis("top", functions=functions)
@@ -368,7 +374,7 @@ def _axis_label(name: str, unit: str) -> str:
     """A quantity's axis label: the name, plus its unit unless the name's suffix says it."""
     from ._report import unit_from_name
 
-    return name if (not unit or unit_from_name(name)) else f"{name} [{unit}]"
+    return name if (not unit or unit_from_name(name)) else f"{name}\n[{unit}]"
 
 
 def _corner_selection(data, max_quantities):
@@ -377,7 +383,7 @@ def _corner_selection(data, max_quantities):
     A derived quantity identical, draw for draw, to one already chosen (a layer's areal density
     stored again under /derived) is left out.
     """
-    columns, labels = [], []
+    columns, labels, kinds = [], [], []
     n = data.samples.shape[0]
     for q in data.quantities:
         if q.draws is None or q.draws.size != n:
@@ -391,7 +397,14 @@ def _corner_selection(data, max_quantities):
             continue
         columns.append(q.draws)
         labels.append(_axis_label(q.name, q.unit))
-    return columns[:max_quantities], labels[:max_quantities]
+        kinds.append(q.kind)
+    # keep room for the derived thicknesses and widths when there are many parameters: the
+    # parameters come in the file's order (sample first, nuisances last)
+    n_derived = min(sum(k == "derived" for k in kinds), max_quantities // 2)
+    n_param = min(sum(k == "parameter" for k in kinds), max_quantities - n_derived)
+    keep = [i for i, k in enumerate(kinds) if k == "parameter"][:n_param]
+    keep += [i for i, k in enumerate(kinds) if k == "derived"][:max_quantities - len(keep)]
+    return [columns[i] for i in keep], [labels[i] for i in keep]
 
 
 def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bins=25,
@@ -411,7 +424,8 @@ def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bin
     labels : sequence of str, optional
         Axis labels, one per column of ``samples``.
     max_quantities : int, optional
-        At most this many quantities (the first ones) are drawn.
+        At most this many quantities are drawn; from a result, up to half of them are the
+        derived thicknesses and widths, the rest the first parameters in the file's order.
     bins : int, optional
         Histogram bins per axis.
     colour : str, optional
@@ -455,7 +469,7 @@ def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bin
         fig = corner.corner(
             samples, labels=labels, bins=bins, fig=fig, color=colour or _style.MODEL_COLOUR,
             quantiles=(0.16, 0.5, 0.84), levels=(0.68, 0.95), show_titles=True,
-            titles=[f"{lab}\n" for lab in labels] if labels else None,
+            titles=[lab.split("\n")[0] + "\n" for lab in labels] if labels else None,
             title_fmt=".3g", title_kwargs={"fontsize": 7.5}, label_kwargs={"fontsize": 8},
             plot_datapoints=False, fill_contours=True, smooth=1.0,
             max_n_ticks=3, labelpad=0.08,

@@ -720,10 +720,13 @@ def write_report(data: ReportData, out_dir=None, *, formats=("png", "svg")) -> d
     written: dict[str, Path] = {}
     skipped: list[str] = []
     makers = (
-        ("spectrum", _plots.plot_spectrum, data.counts is not None and data.predictive is not None),
-        ("profile", _plots.plot_profile, bool(data.profile_bands) and data.depth_1e15 is not None),
+        ("spectrum", _plots.plot_spectrum,
+         data.counts is not None and data.predictive is not None),
+        ("profile", _plots.plot_profile,
+         bool(data.profile_bands) and data.depth_1e15 is not None),
         ("corner", _plots.plot_corner, data.samples is not None and data.samples.shape[0] > 1),
-        ("convergence", _plots.plot_convergence, data.chain is not None and data.chain.shape[0] > 1),
+        ("convergence", _plots.plot_convergence,
+         data.chain is not None and data.chain.shape[0] > 1),
     )
     for name, maker, available in makers:
         if not available:
@@ -744,6 +747,9 @@ def write_report(data: ReportData, out_dir=None, *, formats=("png", "svg")) -> d
     if data.window is not None and not data.window.all() and "spectrum" not in skipped:
         data.report_notes.append("spectrum residuals are shown only inside the fitted window "
                                  f"({int(data.window.sum())} of {data.window.size} channels)")
+    if data.depth_nm is None and "profile" not in skipped:
+        data.report_notes.append("the depth profile has no nm axis: the file gives no depth in "
+                                 "nm (a layer without a density in the run file)")
     if skipped:
         data.report_notes.append("figures not drawn, as the file lacks their data: "
                                  + ", ".join(skipped))

@@ -303,3 +303,11 @@ def test_autocorrelation_of_an_ar1_chain():
     n, tau = _plots.autocorr_growth(chain, n_points=6)
     assert n[-1] == steps and tau.shape == (n.size, 1)
     assert tau[-1, 0] == pytest.approx((1 + phi) / (1 - phi), rel=0.1)
+
+
+def test_corner_keeps_room_for_thicknesses_and_widths(converged):
+    fig = _plots.plot_corner(converged[0], max_quantities=4)
+    bottom = [ax.get_xlabel() for ax in fig.axes[-4:]]
+    assert bottom == ["film.areal_density\n[1e15 atoms/cm2]", "film.mixing\n[1e15 atoms/cm2]",
+                      "film.thickness_nm", "film.mixing_nm"]
+    plt.close(fig)
