@@ -228,12 +228,11 @@ class Sampler:
                 start = emcee.State(self.initial_walkers(theta),
                                     random_state=np.random.RandomState(self.seed).get_state())
             else:
-                start = None
+                # positions, log-posteriors and the random state of the last stored step
+                start = self.backend.get_last_sample()
             fn = _worker_log_posterior if pool is not None else self.objective.log_posterior
             sampler = emcee.EnsembleSampler(self.n_walkers, self.ndim, fn, pool=pool,
                                             backend=self.backend, moves=make_moves(self.moves))
-            if start is not None:
-                sampler._random.set_state(start.random_state)
             if done > 0:
                 converged, tau = self._check(sampler, tau_multiple)
                 status.tau = tau
