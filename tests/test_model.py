@@ -243,7 +243,7 @@ substrate = true
     # the leading edge: highest energy where the signal exceeds 5 % of its maximum
     top = {s: energy[np.flatnonzero(row > 0.05 * row.max())].max()
            for s, row in zip(model.species, per)}
-    # common practice: K grows with target mass (Chu, Mayer and Nicolet 1978, ch. 2)
+    # common practice: K grows with target mass (Chu, Mayer and Nicolet 1978)
     assert top["Sb"] > top["Co"] > top["Si"] > top["Al"] > top["O"]
 
 
@@ -332,7 +332,7 @@ def test_grid_respects_slice_rule_and_layer_boundaries():
     fr = model.layer_fractions()
     np.testing.assert_allclose(fr.sum(axis=1), 1.0)
     # each slice loses at most slice_fraction * FWHM in and out for the nominal sample:
-    # [eps] w = (K S(E)/cos th1 + S(K E)/cos th2) w (Chu, Mayer and Nicolet 1978, ch. 3)
+    # [eps] w = (K S(E)/cos th1 + S(K E)/cos th2) w (Chu, Mayer and Nicolet 1978)
     rec = model.edge_table()
     stop = forward.StoppingModel("4He")
     q = model.isotope_labels.index("28Si")
