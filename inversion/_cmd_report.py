@@ -51,6 +51,9 @@ def add_arguments(parser) -> None:
 
 def run(args) -> int:
     """Write the report, print a short summary and the files written; return 0."""
+    import matplotlib
+
+    matplotlib.use("Agg")  # files only: never open a window, whatever the environment
     from ._report import format_summary_text, read_report_data, write_report
 
     data = read_report_data(args.result)

@@ -6,6 +6,9 @@ figure and returns it.  Options are keyword-only; ``fig=`` (or ``ax=``) draws in
 figure so a second result can be overplotted; an unknown keyword raises TypeError, as Python
 does for any function without ``**kwargs``.  Array keywords override what the result holds.
 
+The functions leave matplotlib's backend alone (so they also draw inline in a notebook); the
+``sondage report`` command selects the file-only Agg backend before drawing.
+
 Credible bands are labelled with what they are: "68 % credible band" is the region between the
 16 % and 84 % posterior quantiles at each point, "95 % credible band" between 2.5 % and 97.5 %.
 """
@@ -20,10 +23,10 @@ import numpy as np
 from . import _style
 from ._style import figure_style
 
-import matplotlib.pyplot as plt  # noqa: E402  (after _style selects the Agg backend)
-from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.patches import Patch  # noqa: E402
-from matplotlib.ticker import LogFormatter  # noqa: E402
+import matplotlib.pyplot as plt
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+from matplotlib.ticker import LogFormatter
 
 __all__ = [
     "plot_spectrum",
@@ -521,7 +524,7 @@ def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_t
     """Walker traces of the slowest parameters and the autocorrelation time against length.
 
     The right panel shows the estimate of the integrated autocorrelation time on the first N
-    steps, with the line tau = N / 50: the estimate is trustworthy, and the chain long enough,
+    steps, with the line tau = N / 50 (or the file's own multiple): the estimate is trustworthy, and the chain long enough,
     once the curves flatten and lie below that line (common practice, after the emcee
     documentation's convergence guidance).
 
@@ -600,9 +603,12 @@ def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_t
         if n_par > len(order):
             axt.plot(steps, tau.mean(axis=1), color="#777777", linestyle=":",
                      label="mean of all parameters")
+        multiple = 50.0
+        if data is not None and "tau_multiple" in data.diagnostics:
+            multiple = float(np.asarray(data.diagnostics["tau_multiple"]).item())
         line = np.array([steps[0], steps[-1]], dtype=float)
-        axt.plot(line, line / 50.0, color="black", linestyle="--", linewidth=1.0,
-                 label="N / 50")
+        axt.plot(line, line / multiple, color="black", linestyle="--", linewidth=1.0,
+                 label=f"N / {multiple:g} (long enough below this line)")
         axt.set_xscale("log")
         axt.set_yscale("log")
         for axis in (axt.xaxis, axt.yaxis):  # plain numbers (20, 300), not 2x10^1

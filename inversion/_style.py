@@ -14,10 +14,7 @@ import contextlib
 from collections.abc import Iterator
 
 import matplotlib
-
-matplotlib.use("Agg")  # files only; never open a window
-
-import matplotlib.pyplot as plt  # noqa: E402
+import matplotlib.pyplot as plt
 
 __all__ = [
     "PALETTE",
