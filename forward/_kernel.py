@@ -480,5 +480,8 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
         run = 0.0
         for k in range(n_ch):
             run += plateau[r, k]
-            out[r, k] += run * (edges_keV[k + 1] - edges_keV[k])
+            v = out[r, k] + run * (edges_keV[k + 1] - edges_keV[k])
+            # every channel is a sum of boxes smoothed by Gaussians, so it is >= 0; the
+            # differences of step integrals can leave -1e-13 or so of rounding
+            out[r, k] = v if v > 0.0 else 0.0
     return out

@@ -183,4 +183,4 @@ def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_element
             if np.isfinite(e[i]):
                 add_step(row, e[i], s[i], above - heights[i])
             above = heights[i]
-    return out
+    return np.maximum(out, 0.0)  # clear the rounding below zero, as the kernel does

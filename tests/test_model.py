@@ -363,3 +363,53 @@ def test_depth_map_runs_from_surface_edge_down():
     # the surface edge of Si is K E0 (Chu, Mayer and Nicolet 1978: E1 = K E0 at the surface)
     k = forward.kinematic_factor(model._m1, forward.isotope("Si", 28).mass_u, 165.0)
     assert abs(e[0] - k * 1800.0) < 1e-9
+
+
+# ----------------------------------------------------------------------------------------------
+# the `sondage simulate` command
+
+
+def _write_run(tmp_path, **kw):
+    text = RUN_HEAD.format(**{**dict(energy=1800.0, theta=165.0, th1=0.0, th2=15.0, fwhm=16.0,
+                                     omega=2.5, gain=2.0, offset=50.0, quad=0.0, charge=5.0), **kw})
+    path = tmp_path / "invented.toml"
+    path.write_text(text + TRACER)
+    return path
+
+
+def test_simulate_command_writes_a_spectrum_that_reads_back(tmp_path):
+    from inversion.cli import main
+
+    run_file = _write_run(tmp_path)
+    out = tmp_path / "sim.csv"
+    png = tmp_path / "sim.png"
+    assert main(["simulate", str(run_file), "-o", str(out), "--poisson", "--seed", "11",
+                 "--plot", str(png)]) == 0
+    spectrum = forward.read_spectrum(str(out))
+    model = forward.ForwardModel(forward.load_run(run_file))
+    expected = model.expected_counts(model.layer_fractions())
+    assert len(spectrum) == model.n_channels
+    # the draw is the seeded Poisson draw of the expected counts (numpy's default generator)
+    np.testing.assert_array_equal(spectrum.counts, np.random.default_rng(11).poisson(expected))
+    header = out.read_text().splitlines()[4]
+    assert header == ("channel,energy_keV,counts,expected,expected_Ti,expected_O18,expected_O,"
+                      "expected_C")
+    assert png.stat().st_size > 10000
+    # without --poisson the counts column is the expected spectrum itself
+    out2 = tmp_path / "exact.csv"
+    assert main(["simulate", str(run_file), "-o", str(out2), "--channels", "700"]) == 0
+    with pytest.warns(UserWarning, match="not whole numbers"):
+        exact = forward.read_spectrum(str(out2))
+    wide = forward.ForwardModel(forward.load_run(run_file), n_channels=700)
+    assert len(exact) == 700 > model.n_channels
+    np.testing.assert_allclose(exact.counts, wide.expected_counts(wide.layer_fractions()),
+                               rtol=1e-15)
+
+
+def test_simulate_command_rejects_seed_without_poisson(tmp_path, capsys):
+    from inversion.cli import main
+
+    run_file = _write_run(tmp_path)
+    assert main(["simulate", str(run_file), "-o", str(tmp_path / "x.csv"), "--seed", "3"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--seed" in err[0]
