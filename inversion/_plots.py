@@ -133,8 +133,8 @@ def _channel_to_energy(channel, channel_energy_keV, calibration):
 
 
 def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
-                  species_spectra=None, channel_energy_keV=None, calibration=None,
-                  window=None, log_counts=False, show_species=True, label=None, fig=None,
+                  species_spectra=None, model_median=None, channel_energy_keV=None,
+                  calibration=None, window=None, log_counts=False, show_species=True, label=None, fig=None,
                   figsize=(9.0, 5.6), title=None):
     """Measured spectrum, posterior predictive bands, each species' contribution and residuals.
 
@@ -151,6 +151,9 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
         included).
     species_spectra : dict of str to array_like, optional
         Median model counts from each species, drawn as thin lines.
+    model_median : array_like, optional
+        Median over the draws of the expected (noise-free) counts; the residuals are taken
+        against it.  Without it, against the predictive median.
     channel_energy_keV : array_like, optional
         Energy of each channel (keV), for the energy axis on top.
     calibration : dict, optional
@@ -176,7 +179,8 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
     -------
     matplotlib.figure.Figure
         Upper panel: counts against channel (energy on the top axis when known).  Lower panel:
-        signed Poisson deviance residuals of the data against the predictive median.
+        signed Poisson deviance residuals of the data against the median model (see
+        :func:`deviance_residuals`).
     """
     data = _resolve(result)
     channel = _pick(channel, data, "channel")
@@ -186,6 +190,7 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
     channel_energy_keV = _pick(channel_energy_keV, data, "channel_energy_keV")
     calibration = _pick(calibration, data, "calibration") or {}
     window = _pick(window, data, "window")
+    model_median = _pick(model_median, data, "model_median")
     if counts is None or predictive is None:
         raise ValueError("plot_spectrum needs counts and predictive (give a result or both "
                          "arrays)")
@@ -236,7 +241,8 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
         if title and new:
             ax.set_title(title, pad=28)
 
-        residual = deviance_residuals(counts, predictive[2])
+        reference = predictive[2] if model_median is None else model_median
+        residual = deviance_residuals(counts, reference)
         if window is not None:
             window = np.asarray(window, dtype=bool)
             residual = np.where(window, residual, np.nan)

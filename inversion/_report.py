@@ -107,6 +107,7 @@ class ReportData:
     channel: np.ndarray | None = None
     counts: np.ndarray | None = None
     predictive: np.ndarray | None = None  # (5, channels)
+    model_median: np.ndarray | None = None  # median expected counts (no noise)
     window: np.ndarray | None = None  # bool per channel: fitted
     species_spectra: dict = field(default_factory=dict)  # species -> (channels,)
     channel_energy_keV: np.ndarray | None = None
@@ -399,6 +400,8 @@ def _read_open_file(f, path: Path) -> ReportData:
             np.arange(data.counts.size, dtype=float)
     if "predictive" in spec:
         data.predictive = np.asarray(spec["predictive"][()], dtype=float)
+    if "model_median" in spec:
+        data.model_median = np.asarray(spec["model_median"][()], dtype=float)
     if "window" in spec:
         data.window = np.asarray(spec["window"][()], dtype=bool)
     if "energy_keV" in spec:
@@ -523,8 +526,8 @@ def format_summary_text(data: ReportData, *, compact: bool = False) -> str:
     data : ReportData
         What was read from the result file.
     compact : bool, optional
-        Leave out derived quantities whose draws equal a parameter's (a layer's areal density
-        stored again under /derived), so the printed list stays short.
+        Leave out derived quantities that repeat a parameter (same name, same draws: a layer's
+        areal density stored again under /derived), so the printed list stays short.
     """
     ok, reason = _convergence_verdict(data)
     lines = []
@@ -546,11 +549,11 @@ def format_summary_text(data: ReportData, *, compact: bool = False) -> str:
 
 
 def _repeats_parameter(data: ReportData, q: Quantity) -> bool:
-    """True for a derived quantity whose draws are exactly one parameter's draws."""
+    """True for a derived quantity stored under a parameter's name with the same draws."""
     if q.kind != "derived" or q.draws is None:
         return False
-    return any(p.kind == "parameter" and p.draws is not None and np.array_equal(p.draws, q.draws)
-               for p in data.quantities)
+    return any(p.kind == "parameter" and p.name == q.name and p.draws is not None
+               and np.array_equal(p.draws, q.draws) for p in data.quantities)
 
 
 def write_summary_csv(data: ReportData, path: Path) -> Path:
