@@ -276,8 +276,8 @@ def plot_spectrum(result=None, *, channel=None, counts=None, predictive=None,
 
 
 def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, depth_nm=None,
-                 species=None, show_best_fit=True, log_fraction=False, label=None, ax=None,
-                 figsize=(8.4, 4.6), title=None):
+                 species=None, show_best_fit=True, log_fraction=False, depth_max_1e15=None,
+                 label=None, ax=None, figsize=(8.4, 4.6), title=None):
     """Atom fraction of each species against depth, with 68 % and 95 % credible bands.
 
     Parameters
@@ -298,6 +298,9 @@ def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, dep
         Draw the best-fit profile as a thin dashed line.
     log_fraction : bool, optional
         Logarithmic atom-fraction axis (from 1e-4), to see minor species and tails.
+    depth_max_1e15 : float, optional
+        Right end of the depth axis (1e15 atoms/cm2).  Default: 30 % beyond the deepest slice
+        where any band still changes, so a thin film is not lost against a deep substrate.
     label : str, optional
         Prefix for the legend entries (when overplotting).
     ax : matplotlib.axes.Axes, optional
@@ -362,7 +365,9 @@ def plot_profile(result=None, *, depth_1e15=None, bands=None, best_fit=None, dep
         if new:
             ax.set_xlabel(r"depth (10$^{15}$ atoms/cm$^2$)")
             ax.set_ylabel("atom fraction")
-            ax.set_xlim(depth[0] if depth[0] <= 0 else 0.0, depth[-1])
+            ax.set_xlim(depth[0] if depth[0] <= 0 else 0.0,
+                        depth_max_1e15 if depth_max_1e15 is not None else
+                        _changing_depth(depth, [bands[n] for n in names]))
             if log_fraction:
                 ax.set_yscale("log")
                 ax.set_ylim(1e-4, 1.3)
@@ -384,6 +389,18 @@ def _axis_label(name: str, unit: str) -> str:
     from ._report import unit_from_name
 
     return name if (not unit or unit_from_name(name)) else f"{name}\n[{unit}]"
+
+
+def _changing_depth(depth, bands, tolerance=1e-3):
+    """Depth 30 % beyond the deepest slice where any band differs from its value at the bottom."""
+    last = 0
+    for q in bands:
+        q = np.asarray(q, dtype=float)
+        moving = np.flatnonzero(np.any(np.abs(q - q[:, -1:]) > tolerance, axis=0))
+        if moving.size:
+            last = max(last, int(moving[-1]) + 1)
+    last = min(last, depth.size - 1)
+    return float(min(depth[-1], depth[last] * 1.3)) if depth[last] > 0 else float(depth[-1])
 
 
 def _corner_selection(data, max_quantities):

@@ -311,3 +311,15 @@ def test_corner_keeps_room_for_thicknesses_and_widths(converged):
     assert bottom == ["film.areal_density\n[1e15 atoms/cm2]", "film.mixing\n[1e15 atoms/cm2]",
                       "film.thickness_nm", "film.mixing_nm"]
     plt.close(fig)
+
+
+def test_depth_axis_ends_where_the_profile_stops_changing():
+    depth = np.arange(100) * 10.0 + 5.0  # a thin film over a deep substrate
+    step = (depth > 200).astype(float)
+    bands = {"Si": np.tile(step, (5, 1)), "Ni": np.tile(1 - step, (5, 1))}
+    fig = _plots.plot_profile(depth_1e15=depth, bands=bands)
+    assert fig.axes[0].get_xlim()[1] == pytest.approx(1.3 * 205.0)
+    plt.close(fig)
+    fig = _plots.plot_profile(depth_1e15=depth, bands=bands, depth_max_1e15=800.0)
+    assert fig.axes[0].get_xlim()[1] == 800.0
+    plt.close(fig)
