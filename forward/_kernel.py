@@ -325,13 +325,26 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
     if recording:
         record[:, :, :] = np.nan
 
+    # last slice holding each species: below it (and its closing edge) the species' isotopes
+    # need no characteristics
+    last_slice = np.full(n_species, -1)
+    for jj in range(n_slices):
+        for sp in range(n_species):
+            if fractions[jj, sp] > 0.0:
+                last_slice[sp] = jj
+
     e_in = energy_keV
     v_in = 0.0
     j = 0
     while True:
-        final = j >= n_slices or e_in <= floor_keV or k_max * e_in < p_e[0]
+        k_need = 0.0
+        for q in range(n_iso):
+            if alive[q] and (recording or last_slice[iso_species[q]] >= j - 1) \
+                    and iso_k[q] > k_need:
+                k_need = iso_k[q]
+        final = j >= n_slices or e_in <= floor_keV or k_need * e_in < p_e[0]
         # drop characteristics that no scattered ion can reach any more
-        while p_hi > 1 and p_e[p_hi - 1] > k_max * e_in:
+        while p_hi > 1 and p_e[p_hi - 1] > k_need * e_in:
             p_hi -= 1
 
         # composition of slice j

@@ -105,11 +105,18 @@ def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_element
     box_y = [[] for _ in range(n_iso)]
     open_iso = np.ones(n_iso, dtype=bool)
 
+    # the last slice holding each species
+    present = fractions > 0
+    last_slice = np.where(present.any(axis=0), n_slices - 1 - np.argmax(present[::-1], axis=0), -1)
+
     e_in, v_in = energy_keV, 0.0
     j = 0
     while True:
-        final = j >= n_slices or e_in <= floor_keV or k_max * e_in < loc[0]
-        while active > 2 and loc[active - 2] > k_max * e_in:
+        # heaviest isotope still to be followed: present in this slice or the one above
+        needed = open_iso & ((last_slice[iso_species] >= j - 1) | (record.shape[0] > 0))
+        k_need = iso_k[needed].max() if needed.any() else 0.0
+        final = j >= n_slices or e_in <= floor_keV or k_need * e_in < loc[0]
+        while active > 2 and loc[active - 2] > k_need * e_in:
             active -= 1
         comp = np.zeros(n_elements)
         if not final:
