@@ -92,9 +92,6 @@ def simulate(run, *, n_channels=None, poisson=False, seed=None):
 
 def plot_simulation(model, columns, path) -> None:
     """Draw the simulated spectrum: counts, the expected total and each species, versus energy."""
-    import matplotlib
-
-    matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
     from ._style import DATA_COLOUR, MODEL_COLOUR, figure_style, species_colours
@@ -162,5 +159,8 @@ def run(args) -> int:
               "energy_keV: channel centre; expected_<species>: expected counts of one species"]
     forward.write_spectrum_csv(args.output, columns, header_lines=header)
     if args.plot:
+        import matplotlib
+
+        matplotlib.use("Agg")  # the command draws to files only
         plot_simulation(model, columns, args.plot)
     return 0
