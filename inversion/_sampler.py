@@ -20,6 +20,11 @@ from scipy import optimize
 
 __all__ = ["Sampler", "SamplerStatus", "autocorr_summary", "make_moves", "worker_pool"]
 
+#: cost given to points outside the prior or the physical limits during the start search; far
+#: above any real -log posterior, yet small enough that the optimiser's population statistics
+#: do not overflow
+_PENALTY = 1e30
+
 # ----- worker side: one objective per process, set by the pool initializer -----
 _WORKER_OBJECTIVE = None
 
@@ -37,7 +42,7 @@ def _worker_log_posterior(theta):
 
 def _worker_cost(theta):
     value = _WORKER_OBJECTIVE.log_posterior(theta)
-    return -value if np.isfinite(value) else 1e300
+    return -value if np.isfinite(value) else _PENALTY
 
 
 class _LocalCost:
@@ -46,7 +51,7 @@ class _LocalCost:
 
     def __call__(self, theta):
         value = self.objective.log_posterior(theta)
-        return -value if np.isfinite(value) else 1e300
+        return -value if np.isfinite(value) else _PENALTY
 
 
 @contextlib.contextmanager

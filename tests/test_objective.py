@@ -200,3 +200,24 @@ def test_negative_background_is_outside_the_physical_limits():
     theta = np.array([320.0, 12.0, 1.0, 8.0, 40.0, 20.0, -0.5, 1.0])
     assert obj.unpack(theta) is None
     assert obj.log_posterior(theta) == -np.inf
+
+
+def test_node_profile_parameters_and_random_walk_prior():
+    fit = {"profile": "nodes", "nodes": {"count": 6, "depth_1e15": 480.0, "step_sd": 0.4},
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV"]}
+    obj = toy_objective(fit)
+    assert obj.names[:6] == ["nodes.Ge.logratio0"] + [f"nodes.Ge.step{k}" for k in range(1, 6)]
+    assert obj.names[6:] == ["fluence_scale"]
+    theta = np.array([0.4, -0.2, 0.1, -1.0, -2.0, -0.5, 1.0])
+    # the smoothness prior is a Gaussian random walk: start normal(0, 3), steps normal(0, 0.4)
+    # (scipy.stats.norm, reference library)
+    ref = stats.norm(0, 3.0).logpdf(0.4) + stats.norm(0, 0.4).logpdf(theta[1:6]).sum() \
+        + stats.norm(1.0, 0.05).logpdf(1.0)
+    assert obj.log_prior(theta) == pytest.approx(ref, rel=1e-12)
+    fr = obj.profile(theta)
+    assert np.allclose(fr.sum(axis=1), 1.0)  # a substrate: the deepest node holds below
+    y = np.cumsum(theta[:6])
+    assert np.log(fr[0, 0] / fr[0, 1]) == pytest.approx(np.interp(20.0, np.linspace(0, 480, 6), y))
+    totals = obj.derived(theta)  # total.Ge, total.Si above the deepest node
+    assert totals.sum() == pytest.approx(480.0)
+    assert np.isfinite(obj.log_posterior(theta))

@@ -1,0 +1,182 @@
+"""Inversion speed: wall time to a converged chain and effective samples per second.
+
+Scenarios (invented samples, spectra simulated by the forward model with Poisson noise):
+
+* ``layers``: Ni0.5Ge0.5 film (300e15 atoms/cm2) over a Ge film (200e15) on Si, 4He at
+  2000 keV; free: both areal densities, both interface mixing widths, the film's Ni:Ge share,
+  fluence, gain, offset, resolution and the Ge stopping scale (10 parameters).
+* ``nodes``: the same beam on a Ni film (250e15) that has mixed into Si (mixing width 60e15);
+  fitted with the free-form profile, 20 nodes, species Ni and Si (20 parameters + fluence).
+
+Usage::
+
+    python benchmarks/inversion_speed.py --json                   # layers, 1 worker
+    python benchmarks/inversion_speed.py --scenario nodes --moves differential --json
+    python benchmarks/inversion_speed.py --workers 2 --json
+
+Prints one JSON object (``--json``) with wall_s, converged, max_autocorr_steps, ess_per_s,
+n_free_parameters and more.  Results: benchmarks/RESULTS.md, section "Inversion".
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import platform
+import sys
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+import forward  # noqa: E402
+from inversion._api import NotConvergedWarning, invert  # noqa: E402
+
+COMMON = """\
+# INVENTED benchmark scenario (not a real sample or measurement).
+title = "invented inversion benchmark"
+[beam]
+ion = "4He"
+energy_keV = 2000.0
+[geometry]
+scattering_deg = 165.0
+incidence_deg = 0.0
+exit_deg = 15.0
+[detector]
+fwhm_keV = 16.0
+solid_angle_msr = 2.5
+[calibration]
+keV_per_channel = 2.5
+offset_keV = 15.0
+[exposure]
+charge_uC = 5.0
+"""
+
+LAYERS = COMMON + """\
+[[layer]]
+name = "film"
+formula = "Ni0.5Ge0.5"
+areal_density_1e15 = 300.0
+density_g_cm3 = 6.9
+[[layer]]
+name = "under"
+formula = "Ge"
+areal_density_1e15 = 200.0
+density_g_cm3 = 5.3
+[[layer]]
+name = "wafer"
+formula = "Si"
+substrate = true
+density_g_cm3 = 2.33
+[fit]
+fixed = ["stopping.Ni", "stopping.Si"]
+windows = [[260, 760]]
+max_steps = {max_steps}
+moves = "{moves}"
+[fit.free]
+"film.areal_density" = {{ uniform = [100, 600] }}
+"under.areal_density" = {{ uniform = [50, 500] }}
+"film.mixing" = {{ halfnormal = 40 }}
+"under.mixing" = {{ halfnormal = 40 }}
+"film.composition" = true
+"""
+
+NODES = COMMON + """\
+[[layer]]
+name = "film"
+formula = "Ni"
+areal_density_1e15 = 250.0
+density_g_cm3 = 8.9
+[[layer]]
+name = "wafer"
+formula = "Si"
+substrate = true
+density_g_cm3 = 2.33
+[fit]
+profile = "nodes"
+fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV"]
+windows = [[260, 760]]
+max_steps = {max_steps}
+moves = "{moves}"
+[fit.nodes]
+count = 20
+depth_1e15 = 500.0
+step_sd = 0.7
+species = ["Ni", "Si"]
+"""
+
+
+def simulate(run_path, scenario, seed):
+    run = forward.load_run(run_path)
+    model = forward.ForwardModel(run, n_channels=1024)
+    fractions = model.layer_fractions()
+    if scenario == "nodes":
+        from inversion._profiles import LayerStack
+        stack = LayerStack(model.grid.edges_1e15, 2, 2, substrate=True)
+        fractions = stack.fractions([250.0], [60.0], np.eye(2))  # invented truth: mixed
+    else:
+        from inversion._profiles import LayerStack
+        stack = LayerStack(model.grid.edges_1e15, len(model.species), 3, substrate=True)
+        comps = np.zeros((3, len(model.species)))
+        for i, layer in enumerate(run.layers):
+            for sym, f in layer.fractions.items():
+                comps[i, model.species.index(sym)] = f
+        fractions = stack.fractions([300.0, 200.0], [15.0, 25.0], comps)  # invented truth
+    expected = np.maximum(model.expected_counts(fractions), 0.0)
+    return np.random.default_rng(seed).poisson(expected)
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--scenario", choices=("layers", "nodes"), default="layers")
+    ap.add_argument("--workers", type=int, default=1)
+    ap.add_argument("--max-steps", type=int, default=20000)
+    ap.add_argument("--moves", choices=("stretch", "differential"), default="stretch")
+    ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--json", action="store_true")
+    args = ap.parse_args(argv)
+
+    with tempfile.TemporaryDirectory() as tmp:
+        run_path = Path(tmp) / "run.toml"
+        text = (LAYERS if args.scenario == "layers" else NODES).format(
+            max_steps=args.max_steps, moves=args.moves)
+        run_path.write_text(text)
+        counts = simulate(run_path, args.scenario, args.seed)
+        # compile (or load) the numba kernel before timing
+        forward.ForwardModel(forward.load_run(run_path), n_channels=counts.size)
+        t0 = time.perf_counter()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NotConvergedWarning)
+            res = invert(run_path, counts, Path(tmp) / "out.h5", seed=args.seed,
+                         workers=args.workers, progress=False)
+        wall = time.perf_counter() - t0
+    d = res.diagnostics
+    tau = np.asarray(d["autocorr_time"], dtype=float)
+    ess = np.asarray(d["ess"], dtype=float)
+    out = {
+        "scenario": args.scenario, "moves": args.moves, "workers": args.workers,
+        "wall_s": round(wall, 2), "converged": bool(d["converged"]),
+        "steps": int(d["steps"]), "walkers": int(d["walkers"]),
+        "max_autocorr_steps": round(float(np.nanmax(tau)), 1),
+        "min_ess": round(float(np.nanmin(ess)), 1),
+        "ess_per_s": round(float(np.nanmin(ess)) / wall, 2),
+        "mean_acceptance": round(float(d["mean_acceptance"]), 3),
+        "n_free_parameters": len(res.names),
+        "python": platform.python_version(),
+    }
+    if args.scenario == "layers":
+        out["film.areal_density_68"] = [round(v, 2) for v in res.interval("film.areal_density")]
+    if args.json:
+        print(json.dumps(out))
+    else:
+        for k, v in out.items():
+            print(f"{k:>22}: {v}")
+
+
+if __name__ == "__main__":
+    main()
