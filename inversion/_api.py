@@ -179,6 +179,8 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
                       workers=workers, moves=spec.moves)
 
     def on_start(theta, logp):
+        if bar is not None:
+            bar.set_description("sampling")
         with h5py.File(output, "a") as f:
             g = f.require_group("start")
             g.attrs["theta"] = theta
@@ -189,8 +191,10 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     bar = None
     if progress:
         from tqdm import tqdm
+        fresh = int(backend.iteration) == 0
         bar = tqdm(total=max_steps, initial=int(backend.iteration), unit="step",
-                   desc="sampling", file=sys.stderr, dynamic_ncols=True)
+                   desc="start search" if fresh else "sampling", file=sys.stderr,
+                   dynamic_ncols=True)
     last = [int(backend.iteration)]
 
     def on_step(step):

@@ -56,8 +56,7 @@ def summary_table(result) -> str:
     """Median and 68 % interval of each layer thickness and interface mixing width."""
     rows = []
     for name, s in result.summary.items():
-        if name.endswith((".thickness_nm", ".areal_density", ".mixing", ".mixing_nm")) \
-                or name.startswith("total."):
+        if name.endswith((".thickness_nm", ".areal_density", ".mixing", ".mixing_nm")):
             rows.append((name, s.get("unit", ""), s["median"], s["low68"], s["high68"]))
     if not rows:
         return ""
