@@ -2,11 +2,16 @@
 
 from __future__ import annotations
 
+import os
 import shlex
 import sys
 import warnings
 
-__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run", "summary_table"]
+__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run", "summary_table", "DEFAULT_WORKERS"]
+
+#: Two processes ran the 10-parameter layer benchmark 1.5x faster than one on this 2-core
+#: machine (benchmarks/RESULTS.md, "Inversion"), with identical samples.
+DEFAULT_WORKERS = min(2, os.cpu_count() or 1)
 
 HELP = "sample the depth-profile posterior of a spectrum into an HDF5 result file"
 
@@ -39,8 +44,9 @@ def add_arguments(parser) -> None:
     parser.add_argument("--max-steps", type=int, default=None, metavar="N",
                         help="total steps in the chain, earlier segments included "
                              "(default: fit.max_steps, 20000)")
-    parser.add_argument("--workers", type=int, default=1, metavar="N",
-                        help="processes evaluating the model (default 1; see docs/fit.md)")
+    parser.add_argument("--workers", type=int, default=DEFAULT_WORKERS, metavar="N",
+                        help="processes evaluating the model (default: "
+                             f"{DEFAULT_WORKERS}, measured to pay on 2 cores; see docs/fit.md)")
     mode = parser.add_mutually_exclusive_group()
     mode.add_argument("--resume", action="store_true",
                       help="continue the chain stored in the result file")
@@ -75,7 +81,7 @@ def run(args) -> int:
         shlex.quote(a) for a in [args.run_file, args.spectrum, "-o", args.output]
         + (["--seed", str(args.seed)])
         + (["--max-steps", str(args.max_steps)] if args.max_steps is not None else [])
-        + (["--workers", str(args.workers)] if args.workers != 1 else [])
+        + ["--workers", str(args.workers)]
         + (["--resume"] if args.resume else []) + (["--force"] if args.force else []))
     quiet = bool(getattr(args, "quiet", False))
     with warnings.catch_warnings(record=True) as caught:
