@@ -254,7 +254,9 @@ def parse_fit(fit: dict | None, run, model) -> FitSpec:
         raise InputError(f"unknown background {background!r}; allowed: 'off', 'flat', 'linear'",
                          where=_where("background"))
     spec.background = background
-    moves = fit.get("moves", "stretch")
+    # differential-evolution moves mixed about 3x faster (effective samples per second) than
+    # the stretch move on the 21-parameter node benchmark (benchmarks/RESULTS.md, "Inversion")
+    moves = fit.get("moves", "differential" if profile == "nodes" else "stretch")
     if moves not in ("stretch", "differential"):
         raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential'",
                          where=_where("moves"))
