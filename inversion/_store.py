@@ -26,6 +26,7 @@ crash while writing leaves the previous complete state readable.
 from __future__ import annotations
 
 import datetime as _dt
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -80,10 +81,14 @@ def check_input(path, *, run_text, counts):
 def summarise(draws):
     """Median, mean, sd and 68 %/95 % central intervals of each column of ``draws``."""
     draws = np.asarray(draws, dtype=float)
-    q = np.nanquantile(draws, [0.5, 0.16, 0.84, 0.025, 0.975], axis=0) if draws.size else \
-        np.full((5, draws.shape[1]), np.nan)
-    return dict(median=q[0], mean=np.nanmean(draws, axis=0), sd=np.nanstd(draws, axis=0, ddof=1),
-                low68=q[1], high68=q[2], low95=q[3], high95=q[4])
+    with warnings.catch_warnings():
+        # a quantity with no value (thickness without a mass density) summarises to NaN
+        warnings.simplefilter("ignore", RuntimeWarning)
+        q = np.nanquantile(draws, [0.5, 0.16, 0.84, 0.025, 0.975], axis=0) if draws.size else \
+            np.full((5, draws.shape[1]), np.nan)
+        mean = np.nanmean(draws, axis=0)
+        sd = np.nanstd(draws, axis=0, ddof=1)
+    return dict(median=q[0], mean=mean, sd=sd, low68=q[1], high68=q[2], low95=q[3], high95=q[4])
 
 
 def _write_tree(group, tree):

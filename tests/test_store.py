@@ -115,3 +115,19 @@ def test_staged_write_replaces_whole_groups(tmp_path):
     with h5py.File(path, "r") as f:
         assert list(f["profile"]) == ["new"] and f["profile/new"].attrs["unit"] == "nm"
         assert "_staging" not in f
+
+
+def test_layer_without_mass_density_has_nan_thickness_and_a_note(tmp_path):
+    run = toy_run(FIT)
+    run.layers[0].atoms_per_cm3 = None  # no mass density given for the film
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        warnings.simplefilter("ignore", NotConvergedWarning)
+        invert(run, _counts(run), tmp_path / "r.h5", seed=5, max_steps=20,
+               build_model=ToyBuilder(run), progress=False)
+    res = read_result(tmp_path / "r.h5")
+    assert np.all(np.isnan(res.derived["film.thickness_nm"]))
+    assert np.isnan(res.summary["film.thickness_nm"]["median"])
+    with h5py.File(tmp_path / "r.h5", "r") as f:
+        assert "no mass density" in f["derived/film.thickness_nm"].attrs["note"]
+        assert "depth_nm" not in f["profile"]
