@@ -21,7 +21,7 @@ from ._sampler import Sampler, stop_on_interrupt
 from ._store import (MCMC_GROUP, QUANTILES, Result, check_input, now_text, read_result,
                      set_root_attrs, summarise, write_groups, write_input)
 
-__all__ = ["invert", "read_result", "NotConvergedWarning", "prepare", "PROGRAM"]
+__all__ = ["invert", "read_result", "NotConvergedWarning", "prepare", "finalise", "PROGRAM"]
 
 PROGRAM = "sondage"
 

@@ -18,7 +18,8 @@ import emcee
 import numpy as np
 from scipy import optimize
 
-__all__ = ["Sampler", "SamplerStatus", "autocorr_summary", "make_moves", "worker_pool"]
+__all__ = ["Sampler", "SamplerStatus", "autocorr_summary", "make_moves", "worker_pool",
+           "stop_on_interrupt"]
 
 #: cost given to points outside the prior or the physical limits during the start search; far
 #: above any real -log posterior, yet small enough that the optimiser's population statistics

@@ -34,7 +34,7 @@ import h5py
 import numpy as np
 
 __all__ = ["Result", "read_result", "QUANTILES", "write_input", "check_input", "write_groups",
-           "set_root_attrs", "MCMC_GROUP", "summarise"]
+           "set_root_attrs", "MCMC_GROUP", "summarise", "now_text"]
 
 #: quantiles stored for bands and predictive spectra (fractions): 2.5, 16, 50, 84, 97.5 %
 QUANTILES = (0.025, 0.16, 0.5, 0.84, 0.975)
