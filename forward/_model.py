@@ -203,9 +203,16 @@ class ForwardModel:
 
     def __init__(self, run, n_channels: int | None = None, depth_limit_1e15: float | None = None,
                  *, straggling: bool = True, table_step_keV: float = 2.0,
-                 particle_step_keV: float = 20.0):
+                 particle_step_keV: float = 20.0, first_channel: int = 0):
         self.run = run
         src = run.source
+        if int(first_channel) != first_channel or first_channel < 0:
+            raise InputError(f"first_channel={first_channel!r}; give a whole number >= 0",
+                             where=f"{src}: first_channel")
+        #: channels below this one are not computed (they read zero): the slice grid and the
+        #: kernel stop once no ion can reach it, which saves the deep substrate when a fit
+        #: window starts high
+        self.first_channel = int(first_channel)
         if n_channels is not None and (int(n_channels) != n_channels or n_channels < 1):
             raise InputError(f"n_channels={n_channels!r}; give a whole number >= 1",
                              where=f"{src}: n_channels")
@@ -262,6 +269,9 @@ class ForwardModel:
                                  f"at channel {n_channels}; check keV_per_channel and offset_keV",
                                  where=f"{src}: calibration")
         self.n_channels = int(n_channels)
+        if self.first_channel >= self.n_channels:
+            raise InputError(f"first_channel={self.first_channel} is not below the channel count "
+                             f"{self.n_channels}", where=f"{src}: first_channel")
         self._empty_record = np.zeros((0, 0, 3))
 
     # ------------------------------------------------------------------------------------------
@@ -374,7 +384,8 @@ class ForwardModel:
         limit = 0.0 if depth_limit_1e15 is None else float(depth_limit_1e15)
         cal = run.calibration
         sigma_det = run.detector.fwhm_keV * FWHM_TO_SIGMA
-        d0 = max(TABLE_FLOOR_KEV, cal.energy_keV(0.0) - BROADENING_HALF_WIDTH * sigma_det - 150.0)
+        d0 = max(TABLE_FLOOR_KEV, cal.energy_keV(float(self.first_channel))
+                 - BROADENING_HALF_WIDTH * sigma_det - 150.0)
         hard_end = film_total if not has_substrate else math.inf
         hard_end = max(hard_end, limit)
 
@@ -522,7 +533,7 @@ class ForwardModel:
         omega_sr = self.run.detector.solid_angle_msr * 1e-3
         yield_factor = (exp.incident_particles * omega_sr * 1e-27 * 1e15 * exp.live_fraction
                         * nu.fluence_scale * self.inv_cos_in)
-        edges = self.channel_edges_keV(nu)
+        edges = self.channel_edges_keV(nu)[self.first_channel:]
         rec = self._empty_record if record is None else record
         return (self.grid.widths_1e15, fr, self.species_element, len(self.elements),
                 float(self.table_energy_keV[0]), self.table_step_keV,
@@ -553,6 +564,10 @@ class ForwardModel:
         """
         args = self.kernel_arguments(fractions, nuisance, per_species=per_species)
         out = spectrum_kernel(*args)
+        if self.first_channel:
+            full = np.zeros((out.shape[0], self.n_channels))
+            full[:, self.first_channel:] = out
+            out = full
         p = self.run.physics.pileup.probability
         if per_species:
             return out * (1.0 - p) if p > 0 else out

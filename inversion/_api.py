@@ -16,7 +16,7 @@ import forward
 from forward import InputError
 
 from ._fitspec import depth_limit_of, parse_fit
-from ._objective import ModelBuilder, Objective
+from ._objective import ModelBuilder, Objective, first_fit_channel
 from ._sampler import Sampler, stop_on_interrupt
 from ._store import (MCMC_GROUP, QUANTILES, Result, check_input, now_text, read_result,
                      set_root_attrs, summarise, write_groups, write_input)
@@ -81,7 +81,8 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
     if build_model is None:
         build_model = ModelBuilder(run.text, run.source, counts.size,
                                    base_dir=getattr(run, "base_dir", None),
-                                   depth_limit_1e15=depth_limit_of(run.fit))
+                                   depth_limit_1e15=depth_limit_of(run.fit),
+                                   first_channel=first_fit_channel(run.fit, counts.size))
     model = build_model()
     spec = parse_fit(run.fit, run, model)
     objective = Objective(spec, counts, build_model, model, measured=measured,
@@ -296,16 +297,24 @@ def finalise(output, objective, status, *, seed, messages):
     rng = np.random.default_rng(seed + 2)
     n_draws = min(spec.band_draws, samples.shape[0]) if samples.shape[0] else 0
     idx = rng.choice(samples.shape[0], size=n_draws, replace=False) if n_draws else []
-    model = objective.model
     n_ch = objective.counts.size
+    # The fit's model may skip channels below the fit window; the predictive spectra cover
+    # every channel, so they come from the same parameters on a full-range model.
+    whole = objective
+    if getattr(objective.model, "first_channel", 0) and hasattr(objective.build_model,
+                                                                 "full_range"):
+        whole = Objective(spec, objective.counts, objective.build_model.full_range(),
+                          measured=objective.measured, likelihood=objective.use_likelihood)
+    model = whole.model
     profiles, spectra, parts = [], [], []
     for i in idx:
         fr, nu, bg = objective.unpack(samples[i])
         profiles.append(fr)
-        mu = np.maximum(np.asarray(model.expected_counts(fr, nu), dtype=float), 0.0)
+        fr_whole = fr if whole is objective else whole.unpack(samples[i])[0]
+        mu = np.maximum(np.asarray(model.expected_counts(fr_whole, nu), dtype=float), 0.0)
         mu[objective.mask] += bg
         spectra.append(mu)
-        per = np.maximum(np.asarray(model.expected_counts(fr, nu, per_species=True),
+        per = np.maximum(np.asarray(model.expected_counts(fr_whole, nu, per_species=True),
                                     dtype=float), 0.0)
         parts.append(per if per.shape[0] == n_ch else per.T)
     profile = {"depth": (0.5 * (objective.edges_1e15[1:] + objective.edges_1e15[:-1]),

@@ -43,19 +43,43 @@ class ModelBuilder:
     """
 
     def __init__(self, run_text: str, source: str, n_channels: int, base_dir=None,
-                 depth_limit_1e15=None):
+                 depth_limit_1e15=None, first_channel: int = 0):
         self.run_text = run_text
         self.source = str(source)
         self.n_channels = int(n_channels)
         self.base_dir = None if base_dir is None else str(base_dir)
         self.depth_limit_1e15 = depth_limit_1e15
+        self.first_channel = int(first_channel)
 
     def run(self):
         return forward.parse_run(self.run_text, source=self.source, base_dir=self.base_dir)
 
     def __call__(self):
         return forward.ForwardModel(self.run(), n_channels=self.n_channels,
-                                    depth_limit_1e15=self.depth_limit_1e15)
+                                    depth_limit_1e15=self.depth_limit_1e15,
+                                    first_channel=self.first_channel)
+
+    def full_range(self) -> "ModelBuilder":
+        """The same builder computing every channel (for predictive spectra over the whole
+        spectrum, not only the fit window)."""
+        return ModelBuilder(self.run_text, self.source, self.n_channels, self.base_dir,
+                            self.depth_limit_1e15, first_channel=0)
+
+
+def first_fit_channel(fit: dict, n_channels: int) -> int:
+    """The lowest channel the run's explicit ``fit.windows`` reach (0 without windows).
+
+    The model then need not follow ions below it.  Malformed windows give 0 here: the
+    ``[fit]`` check reports them properly.
+    """
+    windows = fit.get("windows") if isinstance(fit, dict) else None
+    try:
+        lows = [int(w[0]) for w in windows]
+    except (TypeError, ValueError, IndexError):
+        return 0
+    if not lows:
+        return 0
+    return int(min(max(min(lows), 0), max(n_channels - 1, 0)))
 
 
 def species_mass_u(species: str) -> float:

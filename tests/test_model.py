@@ -413,3 +413,21 @@ def test_simulate_command_rejects_seed_without_poisson(tmp_path, capsys):
     assert main(["simulate", str(run_file), "-o", str(tmp_path / "x.csv"), "--seed", "3"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "--seed" in err[0]
+
+
+def test_first_channel_skips_only_what_lies_below_it():
+    # Channels from first_channel up must not change (the deep substrate that is skipped
+    # cannot reach them: its signal lies more than 8 sigma + 150 keV lower); channels below
+    # read zero, and the slice grid is shorter.
+    run = make_run(FILM_ON_SUBSTRATE)
+    full = forward.ForwardModel(run, n_channels=700)
+    first = 250
+    cut = forward.ForwardModel(run, n_channels=700, first_channel=first)
+    assert len(cut.grid) < len(full.grid)
+    a = full.expected_counts(full.layer_fractions())
+    b = cut.expected_counts(cut.layer_fractions())
+    assert np.all(b[:first] == 0.0)
+    big = a[first:] > 1.0
+    assert np.max(np.abs(b[first:][big] / a[first:][big] - 1.0)) < 1e-6
+    with pytest.raises(forward.InputError, match="first_channel"):
+        forward.ForwardModel(run, n_channels=700, first_channel=700)
