@@ -370,10 +370,24 @@ class Objective:
                 for col in spec.share_species[i]:
                     names.append(f"{spec.layers[i].name}.fraction.{spec.species[col]}")
                     units.append("")
-        for el in spec.elements:
-            names.append(f"total.{el}")
+        for e in self._total_elements():
+            names.append(f"total.{spec.elements[e]}")
             units.append("1e15 atoms/cm2")
         return names, units, notes
+
+    def _total_elements(self):
+        """Element indices whose total areal density above the substrate can be non-zero
+        (an element found only in the substrate would always report 0: left out)."""
+        spec = self.spec
+        if spec.profile != "layers":
+            return list(range(len(spec.elements)))
+        cols = set()
+        for i, L in enumerate(spec.layers):
+            if L.substrate:
+                continue
+            cols.update(int(c) for c in np.flatnonzero(np.asarray(L.composition) > 0))
+            cols.update(int(c) for c in spec.share_species.get(i, ()))
+        return sorted({int(self.species_element[c]) for c in cols})
 
     def _atoms_per_cm3(self, comps):
         out = []
@@ -422,7 +436,7 @@ class Objective:
             a, b = self.edges_1e15[:-1], self.edges_1e15[1:]
             inside = np.clip(spec.nodes["depth_1e15"] - a, 0.0, b - a)
             per_species = inside @ fractions
-        for e in range(len(spec.elements)):
+        for e in self._total_elements():
             values.append(float(per_species[self.species_element == e].sum()))
         return np.array(values, dtype=float)
 
