@@ -109,7 +109,7 @@ class FitSpec:
     check_every: int = 200
     walkers: int = 0
     band_draws: int = 200
-    moves: str = "stretch"
+    moves: str = "differential"
     depth_limit_1e15: float | None = None
     nodes: dict = field(default_factory=dict)
     share_species: dict = field(default_factory=dict)  # layer index -> species columns
@@ -255,8 +255,9 @@ def parse_fit(fit: dict | None, run, model) -> FitSpec:
                          where=_where("background"))
     spec.background = background
     # differential-evolution moves mixed about 3x faster (effective samples per second) than
-    # the stretch move on the 21-parameter node benchmark (benchmarks/RESULTS.md, "Inversion")
-    moves = fit.get("moves", "differential" if profile == "nodes" else "stretch")
+    # the stretch move on both the 21-parameter node benchmark and the 10-parameter layer
+    # benchmark (benchmarks/RESULTS.md, "Inversion"): they are the default for both models
+    moves = fit.get("moves", "differential")
     if moves not in ("stretch", "differential"):
         raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential'",
                          where=_where("moves"))
