@@ -195,7 +195,9 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
         fresh = int(backend.iteration) == 0
         bar = tqdm(total=max_steps, initial=int(backend.iteration), unit="step",
                    desc="start search" if fresh else "sampling", file=sys.stderr,
-                   dynamic_ncols=True)
+                   dynamic_ncols=True,
+                   # into a log file (not a terminal): a line every 30 s, not every step
+                   mininterval=0.1 if sys.stderr.isatty() else 30.0)
     last = [int(backend.iteration)]
 
     def on_step(step):

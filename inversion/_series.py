@@ -505,7 +505,8 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
             if progress:
                 from tqdm import tqdm
                 bar = tqdm(total=len(payloads), initial=len(payloads) - len(todo),
-                           unit="member", desc="series", file=sys.stderr, dynamic_ncols=True)
+                           unit="member", desc="series", file=sys.stderr, dynamic_ncols=True,
+                           mininterval=0.1 if sys.stderr.isatty() else 30.0)
             for fut in as_completed(futures):
                 res = fut.result()
                 if bar is not None:
