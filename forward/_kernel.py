@@ -216,7 +216,7 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                     iso_species, iso_k, iso_weight, e3sigma,
                     energy_keV, inv_cos_in, inv_cos_out, yield_factor,
                     edges_keV, sigma_det_keV, particle_step_keV, floor_keV,
-                    ftab, fder, u_max, du, per_species, record):
+                    ftab, fder, u_max, du, rows_mode, record):
     """Expected counts per channel for one slice table.
 
     Parameters
@@ -261,8 +261,9 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
         Lowest energy followed (at least the table's first energy).
     ftab, fder : float64 arrays
         :func:`broadening_table`; ``u_max`` its half width and ``du`` its step.
-    per_species : bool
-        Return one row per species instead of one row in all.
+    rows_mode : int
+        0: one row in all; 1: one row per species; 2: one row per isotope (in the order of
+        ``iso_k``).
     record : (n + 1, n_iso, 3) float64
         If its first dimension is not zero, the kernel follows every isotope at every edge and
         writes ``[detected energy, straggling variance at the detector (without the detector
@@ -277,7 +278,7 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
     n_species = fractions.shape[1]
     n_iso = iso_k.size
     n_ch = edges_keV.size - 1
-    n_rows = n_species if per_species else 1
+    n_rows = n_species if rows_mode == 1 else (n_iso if rows_mode == 2 else 1)
     out = np.zeros((n_rows, n_ch))
     plateau = np.zeros((n_rows, n_ch))
     coef = _hermite_coefficients(ftab, fder, du)
@@ -395,7 +396,7 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                 continue
             sp = iso_species[q]
             frac = 0.0 if final else fractions[j, sp]
-            row = sp if per_species else 0
+            row = sp if rows_mode == 1 else (q if rows_mode == 2 else 0)
             need = y_prev[q] > 0.0 or frac > 0.0 or recording
             if need:
                 x = iso_k[q] * e_in

@@ -344,6 +344,8 @@ class ForwardModel:
         self._iso_weight = np.array(iso_w, dtype=float)
         self._e3sigma = np.array(e3s, dtype=float).reshape(len(iso_k), n_tab)
         self.isotope_labels = tuple(iso_labels)
+        #: species index (column of the fraction table) of each scattering isotope
+        self.isotope_species = self._iso_species.copy()
 
     # ------------------------------------------------------------------------------------------
     # grid
@@ -511,7 +513,8 @@ class ForwardModel:
         c = np.arange(self.n_channels, dtype=float) + 0.5
         return nu.offset_keV + nu.gain_keV * c + nu.quadratic_keV * c * c
 
-    def kernel_arguments(self, fractions, nuisance=None, *, per_species=False, record=None):
+    def kernel_arguments(self, fractions, nuisance=None, *, per_species=False, per_isotope=False,
+                         record=None):
         """The plain arguments of :func:`forward._kernel.spectrum_kernel`, as a tuple."""
         nu = self._check_nuisance(nuisance)
         fr = np.ascontiguousarray(fractions, dtype=float)
@@ -543,9 +546,10 @@ class ForwardModel:
                 self.energy_keV, self.inv_cos_in, self.inv_cos_out, yield_factor,
                 edges, float(nu.fwhm_keV) * FWHM_TO_SIGMA, self.particle_step_keV,
                 TABLE_FLOOR_KEV, self._ftab, self._fder, BROADENING_HALF_WIDTH, self._du,
-                bool(per_species), rec)
+                2 if per_isotope else (1 if per_species else 0), rec)
 
-    def expected_counts(self, fractions, nuisance=None, *, per_species=False) -> np.ndarray:
+    def expected_counts(self, fractions, nuisance=None, *, per_species=False,
+                        per_isotope=False) -> np.ndarray:
         """Expected counts per channel.
 
         Parameters
@@ -556,20 +560,28 @@ class ForwardModel:
             Default: :meth:`default_nuisance`.
         per_species : bool, optional
             Return ``(n_species, n_channels)``, one spectrum per species.
+        per_isotope : bool, optional
+            Return ``(n_isotopes, n_channels)``, one spectrum per scattering isotope, in the
+            order of :attr:`isotope_labels` (species of each: :attr:`isotope_species`).
 
         Returns
         -------
         numpy.ndarray
-            ``(n_channels,)`` float64, or ``(n_species, n_channels)``.
+            ``(n_channels,)`` float64, ``(n_species, n_channels)`` or
+            ``(n_isotopes, n_channels)``.
         """
-        args = self.kernel_arguments(fractions, nuisance, per_species=per_species)
+        if per_species and per_isotope:
+            raise InputError("ask for per_species or per_isotope, not both",
+                             where="expected_counts")
+        args = self.kernel_arguments(fractions, nuisance, per_species=per_species,
+                                     per_isotope=per_isotope)
         out = spectrum_kernel(*args)
         if self.first_channel:
             full = np.zeros((out.shape[0], self.n_channels))
             full[:, self.first_channel:] = out
             out = full
         p = self.run.physics.pileup.probability
-        if per_species:
+        if per_species or per_isotope:
             return out * (1.0 - p) if p > 0 else out
         total = out[0]
         if p > 0:

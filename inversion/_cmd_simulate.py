@@ -2,8 +2,9 @@
 
 Writes our spectrum CSV (:func:`forward.write_spectrum_csv`) with the columns ``channel``,
 ``energy_keV`` (channel centre), ``counts`` (a Poisson draw with ``--poisson``, else the expected
-counts), ``expected`` and one ``expected_<species>`` column per species.  The file reads back
-with :func:`forward.read_spectrum`.
+counts), ``expected`` and one ``expected_<species>`` column per species (with ``--isotopes``
+also one ``expected_<isotope>`` column per scattering isotope, e.g. ``expected_29Si``).  The file
+reads back with :func:`forward.read_spectrum`.
 """
 
 from __future__ import annotations
@@ -28,6 +29,7 @@ examples:
   sondage simulate sample.toml -o spectrum.csv
   sondage simulate sample.toml -o noisy.csv --poisson --seed 7 --plot noisy.png
   sondage simulate sample.toml -o wide.csv --channels 2048
+  sondage simulate tracer.toml -o tracer.csv --isotopes    # 16O and 18O signals apart
 """
 
 
@@ -42,6 +44,8 @@ def add_arguments(parser) -> None:
                         help="seed of the Poisson draw (default: a fresh seed each run)")
     parser.add_argument("--plot", metavar="FIGURE.png", default=None,
                         help="also draw the spectrum to this image file (png, pdf or svg)")
+    parser.add_argument("--isotopes", action="store_true",
+                        help="also write one expected-counts column per scattering isotope")
     parser.add_argument("--channels", type=int, default=None, metavar="N",
                         help="number of channels (default: enough for 1.05 x the highest edge)")
 
@@ -51,7 +55,7 @@ def column_name(species: str) -> str:
     return "expected_" + re.sub(r"[^A-Za-z0-9_]", "", species.replace("#", "_"))
 
 
-def simulate(run, *, n_channels=None, poisson=False, seed=None):
+def simulate(run, *, n_channels=None, poisson=False, seed=None, isotopes=False):
     """Expected (and optionally Poisson-drawn) spectrum of a run's layered sample.
 
     Parameters
@@ -62,6 +66,10 @@ def simulate(run, *, n_channels=None, poisson=False, seed=None):
         Draw the counts from a Poisson distribution with the expected means.
     seed : int, optional
         Seed of numpy's default generator for the draw.
+    isotopes : bool
+        Add one column per scattering isotope (``expected_18O``; where two species share an
+        isotope, e.g. natural O and an 18O-enriched ``O[18]``, the species is appended:
+        ``expected_18O_O18``).
 
     Returns
     -------
@@ -87,6 +95,14 @@ def simulate(run, *, n_channels=None, poisson=False, seed=None):
     }
     for name, row in zip(model.species, per):
         columns[column_name(name)] = row
+    if isotopes:
+        per_iso = model.expected_counts(fractions, per_isotope=True)
+        labels = list(model.isotope_labels)
+        for q, (label, row) in enumerate(zip(labels, per_iso)):
+            name = "expected_" + label
+            if labels.count(label) > 1:
+                name += "_" + column_name(model.species[model.isotope_species[q]])[9:]
+            columns[name] = row
     return model, columns
 
 
@@ -151,7 +167,7 @@ def run(args) -> int:
                                  where="command line: --seed")
     run_ = forward.load_run(args.run_file)
     model, columns = simulate(run_, n_channels=args.channels, poisson=args.poisson,
-                              seed=args.seed)
+                              seed=args.seed, isotopes=args.isotopes)
     header = [f"simulated by sondage from {run_.source}",
               f"title: {run_.title}" if run_.title else "untitled run",
               "counts: " + ("Poisson draw" + (f", seed {args.seed}" if args.seed is not None else "")

@@ -72,13 +72,13 @@ def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_element
                               iso_species, iso_k, iso_weight, e3sigma,
                               energy_keV, inv_cos_in, inv_cos_out, yield_factor,
                               edges_keV, sigma_det_keV, particle_step_keV, floor_keV,
-                              ftab, fder, u_max, du, per_species, record):
+                              ftab, fder, u_max, du, rows_mode, record):
     """Same result as :func:`forward._kernel.spectrum_kernel`, computed plainly."""
     tables = _Tables(tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale)
     n_slices, n_species = fractions.shape
     n_iso = iso_k.size
     n_ch = edges_keV.size - 1
-    rows = n_species if per_species else 1
+    rows = n_species if rows_mode == 1 else (n_iso if rows_mode == 2 else 1)
     out = np.zeros((rows, n_ch))
     k_max = iso_k.max()
 
@@ -179,7 +179,7 @@ def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_element
 
     # boxes between consecutive edges -> steps at the edges
     for q in range(n_iso):
-        row = iso_species[q] if per_species else 0
+        row = iso_species[q] if rows_mode == 1 else (q if rows_mode == 2 else 0)
         e, s, y = np.array(edge_e[q]), np.array(edge_s[q]), np.array(box_y[q])
         heights = np.zeros(len(y))
         for i in range(len(y) - 1):
