@@ -20,8 +20,15 @@ demo: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest -q
 
+# The speed, memory and calibration studies (tens of minutes on 2 cores; the coverage study is
+# the long one).  Write what they print into benchmarks/RESULTS.md with the machine and date.
 bench: $(STAMP)
-	$(BIN)/python benchmarks/forward_speed.py
+	$(BIN)/python benchmarks/stopping_vs_astar.py
+	$(BIN)/python benchmarks/forward_speed.py --json
+	$(BIN)/python benchmarks/inversion_speed.py --json
+	$(BIN)/python benchmarks/inversion_speed.py --scenario nodes --json
+	$(BIN)/python benchmarks/series_speed.py --json
+	$(BIN)/python benchmarks/coverage.py --json
 
 clean:
 	rm -rf $(VENV) demo-output
