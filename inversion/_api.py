@@ -17,7 +17,7 @@ from forward import InputError
 
 from ._fitspec import depth_limit_of, parse_fit
 from ._objective import ModelBuilder, Objective, first_fit_channel
-from ._sampler import Sampler, stop_on_interrupt
+from ._sampler import SafeHDFBackend, Sampler, stop_on_interrupt
 from ._store import (MCMC_GROUP, QUANTILES, Result, check_input, now_text, read_result,
                      set_root_attrs, summarise, write_groups, write_input)
 
@@ -59,6 +59,26 @@ def _load(run, spectrum):
     return run, counts, measured
 
 
+def _check_worth_fitting(run, counts, spectrum):
+    """Refuse inputs that leave nothing to fit: a beam below every channel, no counts."""
+    calibration = getattr(run, "calibration", None)
+    beam = getattr(run, "beam", None)
+    if calibration is not None and beam is not None:
+        lowest_keV = float(calibration.energy_keV(0.0))
+        beam_keV = float(beam.energy_keV)
+        if beam_keV <= lowest_keV:
+            raise InputError(
+                f"the beam energy {beam_keV:g} keV is not above the lowest channel's energy "
+                f"{lowest_keV:g} keV, so no backscattered particle can reach the spectrum; "
+                "allowed: an offset below the beam energy", where=f"{run.source}: "
+                "calibration.offset_keV")
+    if not np.any(np.asarray(counts) > 0):
+        source = getattr(spectrum, "source", None) or (
+            str(spectrum) if isinstance(spectrum, (str, Path)) else "spectrum")
+        raise InputError("every count is zero: there is nothing to fit; give a measured "
+                         "spectrum with counts", where=source)
+
+
 def prepare(run, spectrum, *, build_model=None, likelihood=True):
     """Build the objective for a run and a spectrum (no sampling, no file).
 
@@ -78,6 +98,7 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
     objective : Objective
     """
     run, counts, measured = _load(run, spectrum)
+    _check_worth_fitting(run, counts, spectrum)
     if build_model is None:
         build_model = ModelBuilder(run.text, run.source, counts.size,
                                    base_dir=getattr(run, "base_dir", None),
@@ -156,7 +177,7 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
                                        or int(stored["ndim"]) != objective.ndim):
                 raise InputError("cannot resume: walkers or parameters differ from the file's",
                                  where=str(output))
-        backend = emcee.backends.HDFBackend(str(output), name=MCMC_GROUP)
+        backend = SafeHDFBackend(str(output), name=MCMC_GROUP)
         if not backend.initialized:
             backend.reset(n_walkers, objective.ndim)
         set_root_attrs(output, command=command, resumed=now_text(), status="running")
@@ -169,7 +190,7 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
                                command=command, started=now_text(), status="running",
                                emcee_version=emcee.__version__, profile_model=spec.profile,
                                moves=spec.moves))
-        backend = emcee.backends.HDFBackend(str(output), name=MCMC_GROUP)
+        backend = SafeHDFBackend(str(output), name=MCMC_GROUP)
         backend.reset(n_walkers, objective.ndim)
         with h5py.File(output, "a") as f:
             g = f[MCMC_GROUP]
@@ -258,7 +279,7 @@ def _depth_nm(objective):
 def finalise(output, objective, status, *, seed, messages):
     """Posterior draws, derived quantities, bands, predictive spectra and diagnostics."""
     spec = objective.spec
-    backend = emcee.backends.HDFBackend(str(output), name=MCMC_GROUP, read_only=True)
+    backend = SafeHDFBackend(str(output), name=MCMC_GROUP, read_only=True)
     steps = int(backend.iteration)
     groups = {}
     tau = np.asarray(status.tau, dtype=float)
