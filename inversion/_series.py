@@ -474,9 +474,23 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
         raise InputError("series file exists; add --resume to continue it or --force to replace "
                          "it", where=str(output))
     if check_inputs:
+        # everything a member's inversion would refuse, refused here, before any cluster starts
+        # (one clear error instead of worker failures and a lost run)
+        from ._api import prepare
+
+        name_nm, name_areal = _interface_names(series)
         for m in series.members:
-            _member_run(series, m)
-            forward.read_spectrum(m.spectrum)
+            run_m, spectrum_m = _member_run(series, m), forward.read_spectrum(m.spectrum)
+            if task not in (None, invert_member):  # a stand-in task: no inversion to check
+                continue
+            _, objective = prepare(run_m, spectrum_m)
+            spec = objective.spec
+            if name_areal not in objective.derived_names()[0] or (
+                    spec.profile == "layers" and name_areal not in spec.names):
+                raise InputError(f"the template's [fit] table does not free the mixing width "
+                                 f"of interface {series.interface} ({name_areal}); free it, "
+                                 f"e.g. \"{name_areal}\" = true",
+                                 where=f"{series.source}: series.interface")
     if force:
         for m in series.members:
             p = member_path(output, m.label)
