@@ -139,7 +139,15 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
     def reset(self, nwalkers, ndim):
         super().reset(nwalkers, ndim)
         with self.open("a") as f:
-            self._create_slots(f[self.name], nwalkers)
+            g = f[self.name]
+            # the chain and log-posteriors again, with a Fletcher-32 checksum per chunk: bytes
+            # damaged on disk then fail loudly on reading instead of entering a resumed chain
+            for key, shape in (("chain", (nwalkers, ndim)), ("log_prob", (nwalkers,))):
+                del g[key]
+                g.create_dataset(key, (0, *shape), maxshape=(None, *shape), dtype=self.dtype,
+                                 chunks=(max(1, 4096 // (8 * int(np.prod(shape)))), *shape),
+                                 fletcher32=True)
+            self._create_slots(g, nwalkers)
 
     def _slot(self, g):
         """(key, meta, accepted) of the slot matching the counter, or None without slots."""

@@ -33,8 +33,8 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-__all__ = ["Result", "read_result", "QUANTILES", "write_input", "check_input", "write_groups",
-           "set_root_attrs", "MCMC_GROUP", "summarise", "now_text"]
+__all__ = ["Result", "read_result", "damaged_message", "QUANTILES", "write_input", "check_input", "write_groups",
+           "set_root_attrs", "MCMC_GROUP", "summarise", "now_text", "checksummed"]
 
 #: quantiles stored for bands and predictive spectra (fractions): 2.5, 16, 50, 84, 97.5 %
 QUANTILES = (0.025, 0.16, 0.5, 0.84, 0.975)
@@ -53,6 +53,18 @@ def set_root_attrs(path, **attrs):
             f.attrs[key] = value
 
 
+def checksummed(arr) -> dict:
+    """Dataset options adding a Fletcher-32 checksum to each chunk of a numeric array.
+
+    HDF5 verifies the checksum on every read, so bytes damaged on disk raise an error instead
+    of being read as numbers (scalars and empty arrays cannot be chunked and go without).
+    """
+    arr = np.asarray(arr)
+    if arr.ndim == 0 or arr.size == 0 or arr.dtype.kind not in "biuf":
+        return {}
+    return {"fletcher32": True}
+
+
 def write_input(path, *, run_text, counts, measured, priors, attrs):
     """Create the file's input part (a fresh file)."""
     with h5py.File(path, "w") as f:
@@ -60,10 +72,12 @@ def write_input(path, *, run_text, counts, measured, priors, attrs):
             f.attrs[key] = value
         g = f.create_group("input")
         g.create_dataset("run", data=run_text, dtype=_STR)
-        d = g.create_dataset("spectrum", data=np.asarray(counts, dtype=float))
+        counts = np.asarray(counts, dtype=float)
+        d = g.create_dataset("spectrum", data=counts, **checksummed(counts))
         d.attrs["unit"] = "counts"
         d.attrs["description"] = "measured counts per channel, channel 0 first"
-        g.create_dataset("measured", data=np.asarray(measured, dtype=bool))
+        measured = np.asarray(measured, dtype=bool)
+        g.create_dataset("measured", data=measured, **checksummed(measured))
         g.create_dataset("priors", data=np.array(priors, dtype=object), dtype=_STR)
 
 
@@ -108,7 +122,7 @@ def _write_tree(group, tree):
         if arr.dtype.kind in ("U", "O"):
             d = group.create_dataset(key, data=arr.astype(object), dtype=_STR)
         else:
-            d = group.create_dataset(key, data=arr)
+            d = group.create_dataset(key, data=arr, **checksummed(arr))
         for k, v in attrs.items():
             d.attrs[k] = v
 
@@ -185,11 +199,35 @@ def _text(value):
 
 
 def read_result(path) -> Result:
-    """Read a result file into a :class:`Result`; parts missing from the file stay empty."""
+    """Read a result file into a :class:`Result`; parts missing from the file stay empty.
+
+    A file that is not HDF5, is cut short or has damaged parts raises
+    :class:`forward.InputError` naming the file and what HDF5 reported; nothing is returned
+    half-read.
+    """
+    from forward import InputError
+
     path = str(path)
     if not Path(path).exists():
-        from forward import InputError
         raise InputError("result file not found", where=path)
+    if Path(path).is_dir():
+        raise InputError("this is a folder, not a result file", where=path)
+    try:
+        return _read_result(path)
+    except InputError:
+        raise
+    except (OSError, KeyError, ValueError, TypeError, RuntimeError, IndexError) as exc:
+        raise InputError(damaged_message(exc), where=path) from exc
+
+
+def damaged_message(exc) -> str:
+    """One line saying a result file cannot be read, with HDF5's own reason."""
+    reason = " ".join(str(exc).split()) or type(exc).__name__
+    return (f"damaged or not a result file (HDF5 says: {reason}); re-run the inversion "
+            "with --force, or restore the file from a copy")
+
+
+def _read_result(path: str) -> Result:
     res = Result(path=path)
     with h5py.File(path, "r") as f:
         res.attrs = {k: _text(v) for k, v in f.attrs.items()}
