@@ -18,8 +18,8 @@ from forward import InputError
 from ._fitspec import depth_limit_of, parse_fit
 from ._objective import ModelBuilder, Objective, first_fit_channel
 from ._sampler import SafeHDFBackend, Sampler, stop_on_interrupt
-from ._store import (MCMC_GROUP, QUANTILES, Result, check_input, now_text, read_result,
-                     set_root_attrs, summarise, write_groups, write_input)
+from ._store import (MCMC_GROUP, QUANTILES, Result, check_input, damaged_message, now_text,
+                     read_result, set_root_attrs, summarise, write_groups, write_input)
 
 __all__ = ["invert", "read_result", "NotConvergedWarning", "prepare", "finalise", "PROGRAM"]
 
@@ -162,40 +162,68 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     if command is None:
         command = f"invert({run.source!r}, output={str(output)!r}, seed={seed})"
 
+    if output.is_dir():
+        raise InputError("this is a folder; give the path of a result file to write, e.g. "
+                         "result.h5", where=str(output))
+    if not output.parent.is_dir():
+        raise InputError(f"folder {str(output.parent)!r} does not exist; create it first or "
+                         "write the result elsewhere", where=str(output))
     if output.exists() and not resume and not force:
         raise InputError("result file exists; add --resume to continue it or --force to replace "
                          "it", where=str(output))
     if resume and output.exists():
-        if not h5py.is_hdf5(output) or not check_input(output, run_text=run.text, counts=counts):
+        if output.is_dir():
+            raise InputError("this is a folder, not a result file", where=str(output))
+        try:
+            same_input = h5py.is_hdf5(output) and check_input(output, run_text=run.text,
+                                                              counts=counts)
+        except (OSError, KeyError, ValueError, TypeError, RuntimeError) as exc:
+            raise InputError("cannot resume: " + damaged_message(exc), where=str(output)) \
+                from exc
+        if not same_input:
             raise InputError("cannot resume: the file holds a different run file or spectrum "
                              "(or is no result file); use --force to start afresh",
                              where=str(output))
-        with h5py.File(output, "r") as f:
-            seed = int(f.attrs.get("seed", seed))
-            stored = f[MCMC_GROUP].attrs if MCMC_GROUP in f else None
+        try:
+            with h5py.File(output, "r") as f:
+                seed = int(f.attrs.get("seed", seed))
+                stored = dict(f[MCMC_GROUP].attrs) if MCMC_GROUP in f else None
             if stored is not None and (int(stored["nwalkers"]) != n_walkers
                                        or int(stored["ndim"]) != objective.ndim):
                 raise InputError("cannot resume: walkers or parameters differ from the file's",
                                  where=str(output))
-        backend = SafeHDFBackend(str(output), name=MCMC_GROUP)
+            backend = SafeHDFBackend(str(output), name=MCMC_GROUP)
+            if stored is not None and int(backend.iteration) > 0:
+                # read every stored step (checksums verified) and the state to continue from
+                backend.get_chain()
+                backend.get_log_prob()
+                backend.get_last_sample()
+        except (OSError, KeyError, ValueError, TypeError, RuntimeError) as exc:
+            raise InputError("cannot resume: " + damaged_message(exc), where=str(output)) \
+                from exc
         if not backend.initialized:
             backend.reset(n_walkers, objective.ndim)
         set_root_attrs(output, command=command, resumed=now_text(), status="running")
     else:
-        if output.exists():
-            output.unlink()
-        write_input(output, run_text=run.text, counts=counts, measured=objective.measured,
-                    priors=spec.describe_priors(),
-                    attrs=dict(program=PROGRAM, version=_version(), seed=int(seed),
-                               command=command, started=now_text(), status="running",
-                               emcee_version=emcee.__version__, profile_model=spec.profile,
-                               moves=spec.moves))
-        backend = SafeHDFBackend(str(output), name=MCMC_GROUP)
-        backend.reset(n_walkers, objective.ndim)
-        with h5py.File(output, "a") as f:
-            g = f[MCMC_GROUP]
-            g.attrs["parameter_names"] = spec.names
-            g.attrs["parameter_units"] = spec.units
+        try:
+            if output.exists():
+                output.unlink()
+            write_input(output, run_text=run.text, counts=counts, measured=objective.measured,
+                        priors=spec.describe_priors(),
+                        attrs=dict(program=PROGRAM, version=_version(), seed=int(seed),
+                                   command=command, started=now_text(), status="running",
+                                   emcee_version=emcee.__version__, profile_model=spec.profile,
+                                   moves=spec.moves))
+            backend = SafeHDFBackend(str(output), name=MCMC_GROUP)
+            backend.reset(n_walkers, objective.ndim)
+            with h5py.File(output, "a") as f:
+                g = f[MCMC_GROUP]
+                g.attrs["parameter_names"] = spec.names
+                g.attrs["parameter_units"] = spec.units
+        except OSError as exc:
+            reason = exc.strerror or " ".join(str(exc).split())
+            raise InputError(f"cannot write the result file: {reason}; choose a folder you can "
+                             "write to, with free space", where=str(output)) from exc
 
     sampler = Sampler(objective, n_walkers=n_walkers, seed=seed, backend=backend,
                       workers=workers, moves=spec.moves)
