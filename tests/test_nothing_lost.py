@@ -372,3 +372,33 @@ def test_report_into_a_file_path_or_unwritable_folder(small_result, tmp_path, ca
         assert code == 2, err
         assert len(err.strip().splitlines()) == 1 and "Traceback" not in err
     assert _sha(small_result) == digest
+
+
+# ----------------------------------------------------------------------------------------------
+# a reader holding the file lock does not stop the sampler's writes
+def test_sampler_writes_wait_for_a_reader_holding_the_lock(tmp_path):
+    import emcee
+
+    from inversion._sampler import SafeHDFBackend
+
+    if os.environ.get("HDF5_USE_FILE_LOCKING", "").upper() == "FALSE":
+        pytest.skip("HDF5 file locking is switched off in this environment")
+    path = tmp_path / "locked.h5"
+    backend = SafeHDFBackend(str(path), name="mcmc")
+    backend.reset(4, 1)
+    holder = subprocess.Popen(
+        [sys.executable, "-c", "import sys, time, h5py\n"
+         "f = h5py.File(sys.argv[1], 'r')\nprint('open', flush=True)\ntime.sleep(1.5)\n",
+         str(path)], stdout=subprocess.PIPE, text=True)
+    assert holder.stdout.readline().strip() == "open"  # the reader holds the lock now
+    t0 = time.monotonic()
+    state = emcee.State(np.zeros((4, 1)), log_prob=np.zeros(4),
+                        random_state=np.random.RandomState(0).get_state())
+    backend.grow(1, None)
+    backend.save_step(state, np.ones(4, dtype=bool))
+    waited = time.monotonic() - t0
+    holder.wait(timeout=30)
+    assert waited > 0.5  # it did wait for the reader (HDF5 file locking is on by default)
+    assert int(backend.iteration) == 1
+    assert np.array_equal(backend.accepted, np.ones(4))
+    assert backend.random_state[1].tolist() == np.random.RandomState(0).get_state()[1].tolist()
