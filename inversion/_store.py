@@ -7,8 +7,10 @@ Layout (every array named, units as attributes; readers tolerate optional parts 
     /input/spectrum       measured counts (channels 0..n-1; attrs: measured mask name)
     /input/measured       bool per channel: True where the spectrum has a value
     /input/priors         one line per free parameter: name [unit]: prior
-    /mcmc/...             emcee's HDF5 backend: chain, log_prob, accepted, random state,
-                          iteration (written each step, the counter last)
+    /mcmc/...             emcee's HDF5 backend layout: chain, log_prob (Fletcher-32 checksums),
+                          accepted, attr iteration; plus resume_key, resume_meta,
+                          resume_accepted: the random state and acceptances after step n in
+                          slot n % 2, flushed before the counter (see SafeHDFBackend)
     /start                attrs: MAP start point and its log-posterior
     /posterior/samples    (draws, parameters), attrs names, units, discard, thin
     /posterior/log_posterior
@@ -20,7 +22,8 @@ Layout (every array named, units as attributes; readers tolerate optional parts 
     /diagnostics/         autocorr_time, acceptance, ess, attrs steps, converged, warnings
 
 The final groups are written under ``/_staging`` and then moved into place one by one, so a
-crash while writing leaves the previous complete state readable.
+crash while writing leaves the previous complete state readable.  Numeric datasets carry
+Fletcher-32 checksums, so damaged bytes raise an error on reading instead of becoming numbers.
 """
 
 from __future__ import annotations
