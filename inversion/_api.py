@@ -102,7 +102,7 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
     if build_model is None:
         build_model = ModelBuilder(run.text, run.source, counts.size,
                                    base_dir=getattr(run, "base_dir", None),
-                                   depth_limit_1e15=depth_limit_of(run.fit),
+                                   depth_limit_1e15=depth_limit_of(run.fit, run.source),
                                    first_channel=first_fit_channel(run.fit, counts.size))
     model = build_model()
     spec = parse_fit(run.fit, run, model)

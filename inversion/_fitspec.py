@@ -7,6 +7,7 @@ and the sampler settings.  Key reference and defaults: docs/fit.md.
 
 from __future__ import annotations
 
+import contextvars
 import math
 import re
 from dataclasses import dataclass, field
@@ -113,6 +114,7 @@ class FitSpec:
     depth_limit_1e15: float | None = None
     nodes: dict = field(default_factory=dict)
     share_species: dict = field(default_factory=dict)  # layer index -> species columns
+    source: str = "run.toml"  # the run file, for error messages
 
     @property
     def names(self) -> list:
@@ -173,15 +175,24 @@ def layer_infos(run, species: tuple) -> list:
     return out
 
 
-def depth_limit_of(fit) -> float | None:
+def depth_limit_of(fit, source: str = "run.toml") -> float | None:
     """The ``fit.depth_limit_1e15`` setting, checked, before the model is built."""
     if isinstance(fit, dict) and "depth_limit_1e15" in fit:
-        return _number(fit["depth_limit_1e15"], "depth_limit_1e15", low=0, low_inclusive=False)
+        token = _SOURCE.set(str(source))
+        try:
+            return _number(fit["depth_limit_1e15"], "depth_limit_1e15", low=0,
+                           low_inclusive=False)
+        finally:
+            _SOURCE.reset(token)
     return None
 
 
+#: the run file being checked, for error messages (set by parse_fit / depth_limit_of)
+_SOURCE: contextvars.ContextVar[str] = contextvars.ContextVar("fit_source", default="run.toml")
+
+
 def _where(key: str) -> str:
-    return f"run.toml: fit.{key}"
+    return f"{_SOURCE.get()}: fit.{key}"
 
 
 def _number(value, key, *, low=None, integer=False, low_inclusive=True):
@@ -214,6 +225,16 @@ def parse_fit(fit: dict | None, run, model) -> FitSpec:
     forward.InputError
         For unknown keys, unknown free quantities, bad priors or settings.
     """
+    token = _SOURCE.set(str(getattr(run, "source", "run.toml")))
+    try:
+        spec = _parse_fit(fit, run, model)
+    finally:
+        _SOURCE.reset(token)
+    spec.source = str(getattr(run, "source", "run.toml"))
+    return spec
+
+
+def _parse_fit(fit, run, model) -> FitSpec:
     fit = dict(fit or {})
     for key in fit:
         if key not in _TOP_KEYS:

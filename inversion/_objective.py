@@ -168,7 +168,7 @@ class Objective:
         self.mask = self._window() & self.measured
         if not self.mask.any():
             raise InputError("empty channel window: no measured channel inside it",
-                             where="run.toml: fit.windows")
+                             where=f"{self.spec.source}: fit.windows")
         self.channels = np.flatnonzero(self.mask)
         k = self.counts[self.mask]
         self._k = k
@@ -195,7 +195,7 @@ class Objective:
             for first, last in spec.windows:
                 if last >= n:
                     raise InputError(f"window [{first}, {last}] outside the spectrum's channels "
-                                     f"0..{n - 1}", where="run.toml: fit.windows")
+                                     f"0..{n - 1}", where=f"{self.spec.source}: fit.windows")
                 mask[first:last + 1] = True
             return mask
         model = self.model
@@ -205,7 +205,7 @@ class Objective:
         if above.size == 0:
             raise InputError(f"empty channel window: the run's own sample expects no channel "
                              f"above {spec.count_threshold:g} counts; lower the threshold or "
-                             "give fit.windows", where="run.toml: fit.count_threshold")
+                             "give fit.windows", where=f"{self.spec.source}: fit.count_threshold")
         energy = np.asarray(model.channel_energy_keV(nu))
         kev_per_channel = abs(float(np.median(np.diff(energy))))
         fwhm_channels = int(math.ceil(float(nu.fwhm_keV) / kev_per_channel))
@@ -217,7 +217,7 @@ class Objective:
         lo, hi = max(lo, 0), min(hi, n - 1)
         if lo > hi:
             raise InputError("empty channel window after the margins; give fit.windows",
-                             where="run.toml: fit.windows")
+                             where=f"{self.spec.source}: fit.windows")
         mask[lo:hi + 1] = True
         return mask
 

@@ -41,7 +41,8 @@ def test_bad_fit_tables_raise_input_errors(fit, where, words):
     with pytest.raises(InputError) as err:
         toy_objective(fit)
     text = str(err.value)
-    assert err.value.where == f"run.toml: {where}", text
+    # the error names the run file it came from (the toy run's source) and the key
+    assert err.value.where == f"toy.toml: {where}", text
     assert words in text
     assert "\n" not in text
 
