@@ -64,7 +64,8 @@ import forward  # noqa: E402
 from inversion._api import NotConvergedWarning, invert, prepare  # noqa: E402
 
 __all__ = ["run_text", "scenario_objective", "simulate_counts", "fisher_matrix",
-           "cramer_rao_sd", "run_replica", "coverage_summary", "main", "TRUTH", "QUANTITIES"]
+           "cramer_rao_sd", "run_replica", "coverage_summary",
+           "expected_coverage_given_draws", "main", "TRUTH", "QUANTITIES"]
 
 #: the invented truth of the film (1e15 atoms/cm2)
 TRUTH = {"film.areal_density": 250.0, "film.mixing": 40.0}
@@ -298,6 +299,44 @@ def coverage_summary(records: list, names=None) -> dict:
     return cov
 
 
+def expected_coverage_given_draws(records: list) -> dict:
+    """The coverage a correct posterior would give for these very nuisance draws.
+
+    In the linear-Gaussian approximation at the nominal truth (Fisher matrix ``F`` of the
+    likelihood, prior precision ``L``, ``P = F + L``) the posterior mean misses the truth by
+    ``-P^-1 L (nu_true - nu_0)`` from the nuisance draws plus Poisson noise of covariance
+    ``P^-1 F P^-1``, and the posterior sd is ``sqrt((P^-1)_ii)`` (common practice for Gaussian
+    linear models).  Averaging the resulting probability of inclusion over the replicas gives
+    the coverage expected from the draws actually made; a gap between it and the nominal level
+    is the luck of the draws, a gap between it and the observed coverage would be a fault.
+    Also returns the correlation between each replica's error and its predicted shift.
+    """
+    from scipy import stats
+    _, obj = scenario_objective(run_text(CHARGE_UC))
+    names = obj.spec.names
+    theta0 = truth_vector(obj, nuisance_truth="nominal")
+    fisher = fisher_matrix(obj, theta0)
+    lam = np.array([1.0 / float(p.prior.dist.std()) ** 2 if p.role[0] in ("nuisance", "stopping")
+                    else 0.0 for p in obj.spec.parameters])
+    p_inv = np.linalg.inv(fisher + np.diag(lam))
+    noise = p_inv @ fisher @ p_inv
+    truth = np.array([[r["truth"][n] for n in names] for r in records])
+    median = np.array([[r["summary"][n]["median"] for n in names] for r in records])
+    shift = -(p_inv @ (lam[:, None] * (truth - theta0).T)).T
+    out = {"expected68": {}, "expected95": {}, "error_shift_correlation": {}}
+    for i, name in enumerate(names):
+        if obj.spec.parameters[i].role[0] == "mixing":
+            continue  # half-normal prior: no Gaussian precision to add
+        sd_post, sd_noise, m = math.sqrt(p_inv[i, i]), math.sqrt(noise[i, i]), shift[:, i]
+        for level, z in ((68, 0.9945), (95, 1.96)):
+            inside = (stats.norm.cdf((z * sd_post - m) / sd_noise)
+                      - stats.norm.cdf((-z * sd_post - m) / sd_noise))
+            out[f"expected{level}"][name] = float(np.mean(inside))
+        out["error_shift_correlation"][name] = float(np.corrcoef(median[:, i] - truth[:, i],
+                                                                 m)[0, 1])
+    return out
+
+
 def _load_state(path: Path) -> list:
     if not path.exists():
         return []
@@ -427,6 +466,8 @@ def main(argv=None) -> int:
                        "nuisance_truth": nominal, **cov,
                        "converged_only": coverage_summary(conv, list(cov["coverage68"]))
                        if conv else {},
+                       "given_draws": expected_coverage_given_draws(recs)
+                       if nominal == "prior" else {},
                        "replica_wall_s_median": float(np.median([r["wall_s"] for r in recs])),
                        "steps_median": float(np.median([r["steps"] for r in recs])),
                        "counts_in_window_median": float(np.median(
