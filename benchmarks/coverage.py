@@ -260,10 +260,11 @@ def run_replica(task: dict) -> dict:
     rng = np.random.default_rng([seed, 7])
     theta_true = truth_vector(fit_obj, rng, task.get("nuisance_truth", "nominal"))
     truth = dict(zip(fit_obj.spec.names, theta_true.tolist()))
-    if task.get("sim_stopping_Mo") is not None:
-        truth["stopping.Mo"] = float(task["sim_stopping_Mo"])
     sim_truth = dict(truth)
-    sim_truth.pop("stopping.Mo", None) if task.get("sim_stopping_Mo") is not None else None
+    if task.get("sim_stopping_Mo") is not None:
+        # the simulation's run text carries the stopping error; record it as the truth
+        sim_truth.pop("stopping.Mo", None)
+        truth["stopping.Mo"] = float(task["sim_stopping_Mo"])
     _, counts = simulate_counts(sim_text, sim_truth, seed)
     run = forward.parse_run(fit_text, source=f"{study}-{seed}.toml")
     with tempfile.TemporaryDirectory() as tmp, warnings.catch_warnings():
