@@ -1,6 +1,6 @@
 """The run file: one TOML file that describes an experiment and a sample model.
 
-The schema is documented key by key in ``docs/runfile.md``.  This module reads the file with
+The schema is documented key by key in README.md, "The run file".  This module reads the file with
 :mod:`tomllib`, checks every value and builds frozen dataclasses.  Every problem raises
 :class:`forward.InputError` with ``where="<file>: <dotted key>"``, e.g.
 ``run.toml: layer[2].areal_density_1e15`` (layers are counted from 1, top layer first).
@@ -362,7 +362,7 @@ class Pileup:
 
 @dataclass(frozen=True)
 class Physics:
-    """Model options; see ``docs/runfile.md`` for defaults.
+    """Model options; see README.md, "The run file" for defaults.
 
     Paths in ``stopping_tables`` and ``cross_section_ratio`` are absolute (resolved against the
     run file's folder).

@@ -133,7 +133,7 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     force : bool
         Replace an existing ``output``.
     workers : int
-        Processes evaluating the model (see docs/fit.md for when 2 pays).
+        Processes evaluating the model (see README.md, "The [fit] table" for when 2 pays).
     progress : bool
         Show a progress bar on stderr.
     command : str, optional

@@ -17,7 +17,7 @@ HELP = "sample the depth-profile posterior of a spectrum into an HDF5 result fil
 
 DESCRIPTION = """\
 Invert a measured spectrum into posterior draws of the sample model's free quantities (the
-run file's [fit] table says which, and with which priors; docs/fit.md), with nuisances such as
+run file's [fit] table says which, and with which priors; README.md, "The [fit] table"), with nuisances such as
 fluence, calibration, resolution and stopping marginalised.  The result file holds the chain,
 posterior draws, derived thicknesses and mixing widths, profile bands, predictive spectra and
 convergence diagnostics.
@@ -46,7 +46,7 @@ def add_arguments(parser) -> None:
                              "(default: fit.max_steps, 20000)")
     parser.add_argument("--workers", type=int, default=DEFAULT_WORKERS, metavar="N",
                         help="processes evaluating the model (default: "
-                             f"{DEFAULT_WORKERS}, measured to pay on 2 cores; see docs/fit.md)")
+                             f"{DEFAULT_WORKERS}, measured to pay on 2 cores; see the README's [fit] section)")
     mode = parser.add_mutually_exclusive_group()
     mode.add_argument("--resume", action="store_true",
                       help="continue the chain stored in the result file")

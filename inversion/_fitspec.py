@@ -2,7 +2,7 @@
 
 :func:`parse_fit` checks the raw table (unknown keys are errors) against the sample the run
 describes and returns a :class:`FitSpec`: the ordered list of free :class:`Parameter` objects
-and the sampler settings.  Key reference and defaults: docs/fit.md.
+and the sampler settings.  Key reference and defaults: README.md, "The [fit] table".
 """
 
 from __future__ import annotations

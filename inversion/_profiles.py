@@ -9,7 +9,7 @@ on the forward model's fixed slice grid (edges in 1e15 atoms/cm2):
 Every row is a slice AVERAGE of the profile, so expected counts are continuous in every
 parameter.  Rows are non-negative and sum to one, except where a sample without a substrate
 ends: there a row sums to the part of the slice that holds atoms (0 below the sample).
-Equations: docs/fit.md.
+Equations: README.md, "The [fit] table".
 """
 
 from __future__ import annotations

@@ -170,7 +170,7 @@ def test_default_window_covers_expected_counts_plus_margin():
     expected = model.expected_counts(model.layer_fractions())
     above = np.flatnonzero(expected > obj.spec.count_threshold)
     fwhm_ch = int(np.ceil(20.0 / 8.0))
-    # upper end: the highest channel above threshold plus 5 FWHM (docs/fit.md)
+    # upper end: the highest channel above threshold plus 5 FWHM (README.md, "The [fit] table")
     assert obj.channels[-1] == min(above[-1] + 5 * fwhm_ch, 149)
     # lower end: clear of the grid's depth limit by 3 FWHM (a substrate is present)
     assert obj.channels[0] == above[0] + 3 * fwhm_ch

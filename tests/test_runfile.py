@@ -299,8 +299,9 @@ def test_bad_values_name_their_key(change, where, fragment):
 def test_the_documented_example_is_valid():
     from pathlib import Path
 
-    doc = (Path(__file__).resolve().parents[1] / "docs" / "runfile.md").read_text()
-    example = doc.split("```toml\n", 1)[1].split("```", 1)[0]
-    run = parse_run(example, source="docs/runfile.md")
+    doc = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = doc.split("## The run file", 1)[1]
+    example = section.split("```toml\n", 1)[1].split("```", 1)[0]
+    run = parse_run(example, source="README.md")
     assert [layer.name for layer in run.layers] == ["contact", "oxide", "wafer"]
     assert run.geometry.layout == "IBM" and run.geometry.exit_deg == pytest.approx(22.0)
