@@ -13,6 +13,14 @@ Run:  .venv/bin/python benchmarks/stopping_vs_astar.py [--out docs/stopping_vs_a
 
 from __future__ import annotations
 
+import sys as _sys
+from pathlib import Path as _Path
+
+# benchmarks/coverage.py must not shadow the `coverage` package, which numba probes for on
+# import: drop this script's own folder from the module search path before anything imports.
+_sys.path[:] = [p for p in _sys.path
+                if _Path(p or ".").resolve() != _Path(__file__).resolve().parent]
+
 import argparse
 import csv
 import datetime

@@ -488,7 +488,12 @@ class ForwardModel:
 
     def _check_nuisance(self, nuisance) -> Nuisance:
         if nuisance is None:
-            return self.default_nuisance()
+            # built once: the hot path must not rebuild it on every call (a fresh copy for
+            # callers comes from default_nuisance())
+            cached = self.__dict__.get("_default_nuisance_cached")
+            if cached is None:
+                cached = self._default_nuisance_cached = self.default_nuisance()
+            return cached
         if not isinstance(nuisance, Nuisance):
             raise TypeError(f"nuisance must be a forward.Nuisance, got {type(nuisance).__name__}")
         if nuisance.stopping_scale.size != len(self.elements):
@@ -499,9 +504,17 @@ class ForwardModel:
     def channel_edges_keV(self, nuisance=None) -> np.ndarray:
         """Lower edges of channels 0..n and the upper edge of the last one, keV."""
         nu = self._check_nuisance(nuisance)
-        c = np.arange(self.n_channels + 1, dtype=float)
-        edges = nu.offset_keV + nu.gain_keV * c + nu.quadratic_keV * c * c
-        if not np.all(np.diff(edges) > 0):
+        c = self.__dict__.get("_edge_channels")
+        if c is None or c.size != self.n_channels + 1:
+            c = self._edge_channels = np.arange(self.n_channels + 1, dtype=float)
+        edges = nu.offset_keV + nu.gain_keV * c
+        if nu.quadratic_keV:
+            edges += nu.quadratic_keV * c * c
+        # the width of channel c is gain + quad (2c + 1), linear in c: positive everywhere
+        # exactly when it is positive for the first and the last channel
+        n = self.n_channels
+        if not (nu.gain_keV + nu.quadratic_keV > 0
+                and nu.gain_keV + nu.quadratic_keV * (2 * n - 1) > 0):
             raise InputError("the calibration does not increase over the channels; give a "
                              "positive keV_per_channel and a quadratic term that keeps it rising",
                              where="nuisance: gain_keV")
@@ -522,20 +535,24 @@ class ForwardModel:
         if fr.shape != (n, m):
             raise InputError(f"the fraction table has shape {fr.shape}; it must be "
                              f"(n_slices, n_species) = ({n}, {m})", where="fractions")
-        if not np.all(np.isfinite(fr)) or np.any(fr < 0):
+        # min >= 0 is False for NaN; max < inf catches infinities: two passes over the table
+        if fr.size and not (fr.min() >= 0.0 and fr.max() < math.inf):
             raise InputError("fractions must be finite and >= 0", where="fractions")
         for name in ("fluence_scale", "gain_keV", "fwhm_keV"):
             v = getattr(nu, name)
-            if not (np.isfinite(v) and (v > 0 or (name == "fwhm_keV" and v == 0))):
+            if not (math.isfinite(v) and (v > 0 or (name == "fwhm_keV" and v == 0))):
                 raise InputError(f"{name}={v!r}; it must be a finite number > 0"
                                  + (" (or 0 for fwhm_keV)" if name == "fwhm_keV" else ""),
                                  where=f"nuisance: {name}")
         if not np.all(np.isfinite(nu.stopping_scale) & (nu.stopping_scale > 0)):
             raise InputError("stopping scales must be finite and > 0", where="nuisance: stopping_scale")
-        exp = self.run.exposure
-        omega_sr = self.run.detector.solid_angle_msr * 1e-3
-        yield_factor = (exp.incident_particles * omega_sr * 1e-27 * 1e15 * exp.live_fraction
-                        * nu.fluence_scale * self.inv_cos_in)
+        base = self.__dict__.get("_yield_base")
+        if base is None:
+            exp = self.run.exposure
+            omega_sr = self.run.detector.solid_angle_msr * 1e-3
+            base = self._yield_base = (exp.incident_particles * omega_sr * 1e-27 * 1e15
+                                       * exp.live_fraction * self.inv_cos_in)
+        yield_factor = base * nu.fluence_scale
         edges = self.channel_edges_keV(nu)[self.first_channel:]
         rec = self._empty_record if record is None else record
         return (self.grid.widths_1e15, fr, self.species_element, len(self.elements),
