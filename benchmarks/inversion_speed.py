@@ -11,7 +11,7 @@ Scenarios (invented samples, spectra simulated by the forward model with Poisson
 Usage::
 
     python benchmarks/inversion_speed.py --json                   # layers, 1 worker
-    python benchmarks/inversion_speed.py --scenario nodes --moves differential --json
+    python benchmarks/inversion_speed.py --scenario nodes --moves stretch --json
     python benchmarks/inversion_speed.py --workers 2 --json
 
 Prints one JSON object (``--json``) with wall_s, converged, max_autocorr_steps, ess_per_s,
@@ -144,7 +144,8 @@ def main(argv=None):
     ap.add_argument("--scenario", choices=("layers", "nodes"), default="layers")
     ap.add_argument("--workers", type=int, default=1)
     ap.add_argument("--max-steps", type=int, default=20000)
-    ap.add_argument("--moves", choices=("stretch", "differential"), default="stretch")
+    ap.add_argument("--moves", choices=("stretch", "differential"), default="differential",
+                    help="emcee moves (default: differential, the program's own default)")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args(argv)
