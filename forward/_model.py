@@ -273,6 +273,12 @@ class ForwardModel:
             raise InputError(f"first_channel={self.first_channel} is not below the channel count "
                              f"{self.n_channels}", where=f"{src}: first_channel")
         self._empty_record = np.zeros((0, 0, 3))
+        # derived once, used on every call
+        self._edge_channels = np.arange(self.n_channels + 1, dtype=float)
+        self._default_nuisance = self.default_nuisance()
+        exp = run.exposure
+        self._yield_base = (exp.incident_particles * run.detector.solid_angle_msr * 1e-3
+                            * 1e-27 * 1e15 * exp.live_fraction * self.inv_cos_in)
 
     # ------------------------------------------------------------------------------------------
     # tables
@@ -488,12 +494,8 @@ class ForwardModel:
 
     def _check_nuisance(self, nuisance) -> Nuisance:
         if nuisance is None:
-            # built once: the hot path must not rebuild it on every call (a fresh copy for
-            # callers comes from default_nuisance())
-            cached = self.__dict__.get("_default_nuisance_cached")
-            if cached is None:
-                cached = self._default_nuisance_cached = self.default_nuisance()
-            return cached
+            # built once in __init__ (callers wanting their own copy use default_nuisance())
+            return self._default_nuisance
         if not isinstance(nuisance, Nuisance):
             raise TypeError(f"nuisance must be a forward.Nuisance, got {type(nuisance).__name__}")
         if nuisance.stopping_scale.size != len(self.elements):
@@ -504,9 +506,7 @@ class ForwardModel:
     def channel_edges_keV(self, nuisance=None) -> np.ndarray:
         """Lower edges of channels 0..n and the upper edge of the last one, keV."""
         nu = self._check_nuisance(nuisance)
-        c = self.__dict__.get("_edge_channels")
-        if c is None or c.size != self.n_channels + 1:
-            c = self._edge_channels = np.arange(self.n_channels + 1, dtype=float)
+        c = self._edge_channels
         edges = nu.offset_keV + nu.gain_keV * c
         if nu.quadratic_keV:
             edges += nu.quadratic_keV * c * c
@@ -546,13 +546,7 @@ class ForwardModel:
                                  where=f"nuisance: {name}")
         if not np.all(np.isfinite(nu.stopping_scale) & (nu.stopping_scale > 0)):
             raise InputError("stopping scales must be finite and > 0", where="nuisance: stopping_scale")
-        base = self.__dict__.get("_yield_base")
-        if base is None:
-            exp = self.run.exposure
-            omega_sr = self.run.detector.solid_angle_msr * 1e-3
-            base = self._yield_base = (exp.incident_particles * omega_sr * 1e-27 * 1e15
-                                       * exp.live_fraction * self.inv_cos_in)
-        yield_factor = base * nu.fluence_scale
+        yield_factor = self._yield_base * nu.fluence_scale
         edges = self.channel_edges_keV(nu)[self.first_channel:]
         rec = self._empty_record if record is None else record
         return (self.grid.widths_1e15, fr, self.species_element, len(self.elements),

@@ -377,7 +377,14 @@ class Objective:
 
     def _total_elements(self):
         """Element indices whose total areal density above the substrate can be non-zero
-        (an element found only in the substrate would always report 0: left out)."""
+        (an element found only in the substrate would always report 0: left out).  Fixed by
+        the spec, so worked out once."""
+        cached = self.__dict__.get("_total_elements_cached")
+        if cached is None:
+            cached = self._total_elements_cached = self._find_total_elements()
+        return cached
+
+    def _find_total_elements(self):
         spec = self.spec
         if spec.profile != "layers":
             return list(range(len(spec.elements)))
