@@ -17,6 +17,7 @@ from forward import InputError
 
 from ._fitspec import depth_limit_of, parse_fit
 from ._objective import ModelBuilder, Objective, first_fit_channel
+from ._outputs import WriterLock, check_output, spectrum_file
 from ._sampler import SafeHDFBackend, Sampler, stop_on_interrupt
 from ._store import (MCMC_GROUP, QUANTILES, Result, check_input, damaged_message, now_text,
                      read_result, set_root_attrs, summarise, write_groups, write_input)
@@ -147,6 +148,9 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
         What :func:`read_result` gives for ``output``.
     """
     output = Path(output)
+    run_path = getattr(run, "source", run) if not isinstance(run, (str, Path)) else run
+    inputs = {"run file": run_path if isinstance(run_path, (str, Path)) else None,
+              "spectrum file": spectrum_file(spectrum)}
     run, objective = prepare(run, spectrum, build_model=build_model, likelihood=likelihood)
     spec = objective.spec
     counts = objective.counts
@@ -158,19 +162,29 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     workers = int(workers)
     if workers < 1:
         raise InputError(f"workers must be at least 1, got {workers}", where="--workers")
-    n_walkers = spec.n_walkers
     if command is None:
         command = f"invert({run.source!r}, output={str(output)!r}, seed={seed})"
 
-    if output.is_dir():
-        raise InputError("this is a folder; give the path of a result file to write, e.g. "
-                         "result.h5", where=str(output))
+    check_output(output, inputs=inputs, force=True, resume=True, kind="result file")
     if not output.parent.is_dir():
         raise InputError(f"folder {str(output.parent)!r} does not exist; create it first or "
                          "write the result elsewhere", where=str(output))
-    if output.exists() and not resume and not force:
-        raise InputError("result file exists; add --resume to continue it or --force to replace "
-                         "it", where=str(output))
+    with WriterLock(output):
+        # one writer at a time: checked under the lock, so no second process can start
+        # between the check and the first write
+        check_output(output, inputs=inputs, force=force, resume=resume, resumable=True,
+                     kind="result file")
+        return _invert_locked(output, run, objective, seed=seed, max_steps=max_steps,
+                              resume=resume, workers=workers, progress=progress,
+                              command=command)
+
+
+def _invert_locked(output, run, objective, *, seed, max_steps, resume, workers, progress,
+                   command) -> Result:
+    """The body of :func:`invert`, run while holding the result file's writer lock."""
+    spec = objective.spec
+    counts = objective.counts
+    n_walkers = spec.n_walkers
     if resume and output.exists():
         if output.is_dir():
             raise InputError("this is a folder, not a result file", where=str(output))

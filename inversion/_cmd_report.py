@@ -10,7 +10,14 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run"]
+__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run", "report_file_names"]
+
+
+def report_file_names(formats) -> list[str]:
+    """Names of the files a report writes into its folder."""
+    figures = [f"{name}.{fmt}" for name in ("spectrum", "profile", "corner", "convergence")
+               for fmt in formats]
+    return figures + ["summary.csv", "summary.md"]
 
 HELP = "draw the figures and write the summary tables of a result file"
 
@@ -36,6 +43,7 @@ examples:
   sondage report film.h5                     # writes film_report/ beside film.h5
   sondage report film.h5 -o figures/film     # writes into figures/film/
   sondage report film.h5 --format pdf        # PNG and PDF instead of PNG and SVG
+  sondage report film.h5 --force             # replace an earlier report in film_report/
 """
 
 
@@ -47,6 +55,8 @@ def add_arguments(parser) -> None:
                              "beside the result file)")
     parser.add_argument("--format", choices=("svg", "pdf"), default="svg",
                         help="vector format written beside each PNG (default: svg)")
+    parser.add_argument("--force", action="store_true",
+                        help="replace report files already in the folder")
 
 
 def run(args) -> int:
@@ -56,8 +66,16 @@ def run(args) -> int:
     matplotlib.use("Agg")  # files only: never open a window, whatever the environment
     from ._report import format_summary_text, read_report_data, write_report
 
+    from ._outputs import check_output
+
     data = read_report_data(args.result)
-    written = write_report(data, args.output, formats=("png", args.format))
+    folder = Path(args.output) if args.output is not None else \
+        data.path.with_name(f"{data.path.stem}_report")
+    if folder.is_dir():
+        for name in report_file_names(("png", args.format)):
+            check_output(folder / name, inputs={"result file": args.result}, force=args.force,
+                         kind="report file")
+    written = write_report(data, folder, formats=("png", args.format))
     print(format_summary_text(data, compact=True))
     folder = Path(next(iter(written.values()))).parent
     print(f"wrote {len(written)} files to {folder}/: "

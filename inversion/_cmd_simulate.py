@@ -10,11 +10,15 @@ reads back with :func:`forward.read_spectrum`.
 from __future__ import annotations
 
 import re
+from pathlib import Path
 
 import numpy as np
 
 __all__ = ["HELP", "DESCRIPTION", "add_arguments", "run", "simulate", "column_name",
            "plot_simulation"]
+
+#: image files --plot can write
+PLOT_SUFFIXES = (".png", ".pdf", ".svg")
 
 HELP = "compute the expected spectrum of a run file's sample (optionally with counting noise)"
 
@@ -29,6 +33,7 @@ examples:
   sondage simulate sample.toml -o spectrum.csv
   sondage simulate sample.toml -o noisy.csv --poisson --seed 7 --plot noisy.png
   sondage simulate sample.toml -o wide.csv --channels 2048
+  sondage simulate sample.toml -o spectrum.csv --force    # replace an earlier spectrum.csv
   sondage simulate tracer.toml -o tracer.csv --isotopes    # 16O and 18O signals apart
 """
 
@@ -48,6 +53,8 @@ def add_arguments(parser) -> None:
                         help="also write one expected-counts column per scattering isotope")
     parser.add_argument("--channels", type=int, default=None, metavar="N",
                         help="number of channels (default: enough for 1.05 x the highest edge)")
+    parser.add_argument("--force", action="store_true",
+                        help="replace an existing output file (never the run file)")
 
 
 def column_name(species: str) -> str:
@@ -165,6 +172,20 @@ def run(args) -> int:
     if args.seed is not None and not args.poisson:
         raise forward.InputError("--seed only applies to a Poisson draw; add --poisson",
                                  where="command line: --seed")
+    from ._outputs import check_output, same_path
+
+    inputs = {"run file": args.run_file}
+    check_output(args.output, inputs=inputs, force=args.force, kind="spectrum file")
+    if args.plot:
+        if same_path(args.plot, args.output):
+            raise forward.InputError("--plot names the same file as -o; give the figure its "
+                                     "own name", where=f"command line: --plot {args.plot}")
+        check_output(args.plot, inputs=inputs, force=args.force, option="--plot",
+                     kind="figure")
+        if Path(args.plot).suffix.lower() not in PLOT_SUFFIXES:
+            raise forward.InputError(
+                f"cannot tell the image format of {args.plot!r}; allowed: a file ending in "
+                + ", ".join(PLOT_SUFFIXES), where="command line: --plot")
     run_ = forward.load_run(args.run_file)
     model, columns = simulate(run_, n_channels=args.channels, poisson=args.poisson,
                               seed=args.seed, isotopes=args.isotopes)
@@ -179,4 +200,8 @@ def run(args) -> int:
 
         matplotlib.use("Agg")  # the command draws to files only
         plot_simulation(model, columns, args.plot)
+    if not getattr(args, "quiet", False):
+        total = float(np.sum(columns["expected"]))
+        print(f"wrote {model.n_channels} channels ({total:.4g} expected counts) to {args.output}"
+              + (f"; figure {args.plot}" if args.plot else ""))
     return 0

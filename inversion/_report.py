@@ -285,13 +285,19 @@ def read_report_data(path) -> ReportData:
                          "written by 'sondage invert'", where=where)
     if path.is_dir():
         raise InputError("this is a folder; give the path of an HDF5 result file", where=where)
+    from ._outputs import is_lock_error
+    from ._store import check_finished, open_for_reading, unreadable
+
     try:
-        f = h5py.File(path, "r")
-    except OSError:
+        f = open_for_reading(path)
+    except OSError as exc:
+        if is_lock_error(exc):
+            raise unreadable(exc, path) from None
         raise InputError("not a readable HDF5 file (damaged, truncated or of another kind); "
                          "give a result file written by 'sondage invert'", where=where) from None
     try:
         with f:
+            check_finished(path, dict(f.attrs))
             return _read_open_file(f, path)
     except InputError:
         raise

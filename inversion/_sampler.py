@@ -9,7 +9,7 @@ vector.
 from __future__ import annotations
 
 import contextlib
-import errno
+import logging
 import multiprocessing
 import pickle
 import signal
@@ -20,6 +20,10 @@ import emcee
 import h5py
 import numpy as np
 from scipy import optimize
+
+from forward import InputError
+
+from ._outputs import is_lock_error, release_inherited_locks
 
 __all__ = ["Sampler", "SamplerStatus", "autocorr_summary", "make_moves", "worker_pool",
            "stop_on_interrupt", "SafeHDFBackend"]
@@ -36,6 +40,7 @@ _WORKER_OBJECTIVE = None
 def _init_worker(blob: bytes):
     global _WORKER_OBJECTIVE
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    release_inherited_locks()  # the parent's writer lock must die with the parent
     _WORKER_OBJECTIVE = pickle.loads(blob)
     _WORKER_OBJECTIVE.model  # build the forward model once, now
 
@@ -114,15 +119,25 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
     LOCK_WAIT_S = 30.0
 
     def open(self, mode="r"):
-        deadline = time.monotonic() + self.LOCK_WAIT_S
+        start = time.monotonic()
+        told = False
         while True:
             try:
                 return super().open(mode)
             except OSError as exc:
-                locked = (getattr(exc, "errno", None) in (errno.EAGAIN, errno.EWOULDBLOCK)
-                          or "unable to lock file" in str(exc))
-                if not locked or time.monotonic() > deadline:
+                if not is_lock_error(exc):
                     raise
+                waited = time.monotonic() - start
+                if waited > self.LOCK_WAIT_S:
+                    raise InputError(
+                        f"busy: another program has kept this file open for {waited:.0f} s, "
+                        "so the sampler cannot write its next step; close it there. Every "
+                        "step written so far is kept: continue with --resume",
+                        where=self.filename) from None
+                if not told and waited > 2.0:
+                    told = True
+                    logging.getLogger("sondage").warning(
+                        "%s: waiting for another program to close the file", self.filename)
                 time.sleep(0.05)
 
     def _create_slots(self, g, nwalkers):

@@ -463,16 +463,33 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
     Path
         The series result file.
     """
-    import forward
-    from dask.distributed import Client, LocalCluster, as_completed
+    from ._outputs import WriterLock, check_output, spectrum_file
 
     output = Path(output)
     workers = int(workers)
     if workers < 1:
         raise InputError(f"workers must be at least 1, got {workers}", where="--workers")
+
+    inputs = {"series file": series.source, "run-file template": series.run_path,
+              **{f"spectrum of member {m.label}": spectrum_file(m.spectrum)
+                 for m in series.members}}
+    check_output(output, inputs=inputs, force=True, resume=True, kind="series file")
     if output.exists() and not (resume or force):
         raise InputError("series file exists; add --resume to continue it or --force to replace "
                          "it", where=str(output))
+    with WriterLock(output):
+        return _run_series_locked(series, output, scheduler=scheduler, workers=workers,
+                                  resume=resume, force=force, seed=seed, max_steps=max_steps,
+                                  task=task, progress=progress, report=report,
+                                  arrhenius_steps=arrhenius_steps, check_inputs=check_inputs)
+
+
+def _run_series_locked(series, output, *, scheduler, workers, resume, force, seed, max_steps,
+                       task, progress, report, arrhenius_steps, check_inputs):
+    """The body of :func:`run_series`, run while holding the series file's writer lock."""
+    import forward
+    from dask.distributed import Client, LocalCluster, as_completed
+
     if check_inputs:
         # everything a member's inversion would refuse, refused here, before any cluster starts
         # (one clear error instead of worker failures and a lost run)

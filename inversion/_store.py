@@ -29,6 +29,7 @@ Fletcher-32 checksums, so damaged bytes raise an error on reading instead of bec
 from __future__ import annotations
 
 import datetime as _dt
+import time
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,7 +37,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-__all__ = ["Result", "read_result", "damaged_message", "QUANTILES", "write_input", "check_input", "write_groups",
+__all__ = ["Result", "read_result", "damaged_message", "unreadable", "open_for_reading", "QUANTILES", "write_input", "check_input", "write_groups",
            "set_root_attrs", "MCMC_GROUP", "summarise", "now_text", "checksummed"]
 
 #: quantiles stored for bands and predictive spectra (fractions): 2.5, 16, 50, 84, 97.5 %
@@ -220,7 +221,7 @@ def read_result(path) -> Result:
     except InputError:
         raise
     except (OSError, KeyError, ValueError, TypeError, RuntimeError, IndexError) as exc:
-        raise InputError(damaged_message(exc), where=path) from exc
+        raise unreadable(exc, path) from exc
 
 
 def damaged_message(exc) -> str:
@@ -230,9 +231,65 @@ def damaged_message(exc) -> str:
             "with --force, or restore the file from a copy")
 
 
+#: seconds a reader retries while a writer holds HDF5's own file lock (a writer keeps the file
+#: open only for the moment of writing one step)
+READ_LOCK_WAIT_S = 5.0
+
+
+def open_for_reading(path, wait_s: float = READ_LOCK_WAIT_S):
+    """``h5py.File(path, "r")``, retried for ``wait_s`` seconds while another process has
+    the file open for writing; then the lock error is raised (see :func:`unreadable`)."""
+    from ._outputs import is_lock_error
+
+    deadline = time.monotonic() + wait_s
+    while True:
+        try:
+            return h5py.File(path, "r")
+        except OSError as exc:
+            if not is_lock_error(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.05)
+
+
+def unreadable(exc, path):
+    """The :class:`forward.InputError` for a result file that could not be read: "busy" when
+    another process holds it, "damaged" otherwise."""
+    from forward import InputError
+
+    from ._outputs import is_lock_error, writer_pid
+
+    if is_lock_error(exc):
+        pid = writer_pid(path)
+        who = (f"sondage process {pid} is writing it" if pid is not None and pid > 0
+               else "another program has it open for writing")
+        return InputError(f"busy: {who}; try again when it has finished or closed the file",
+                          where=str(path))
+    return InputError(damaged_message(exc), where=str(path))
+
+
+def check_finished(path, attrs) -> None:
+    """Refuse a result file whose inversion is still writing it or stopped before finishing."""
+    from forward import InputError
+
+    from ._outputs import writer_pid
+
+    status = attrs.get("status", "")
+    status = status.decode() if isinstance(status, bytes) else str(status)
+    if status != "running":
+        return
+    pid = writer_pid(path)
+    if pid is not None:
+        who = f"sondage process {pid}" if pid > 0 else "another sondage process"
+        raise InputError(f"busy: {who} is still writing this result file; wait for it to "
+                         "finish", where=str(path))
+    raise InputError("the inversion writing this file stopped before it finished (status "
+                     "'running', no process writing it); continue it with sondage invert ... "
+                     "--resume, then try again", where=str(path))
+
+
 def _read_result(path: str) -> Result:
     res = Result(path=path)
-    with h5py.File(path, "r") as f:
+    with open_for_reading(path) as f:
         res.attrs = {k: _text(v) for k, v in f.attrs.items()}
         if "input/run" in f:
             res.run_text = _text(f["input/run"][()])

@@ -21,3 +21,17 @@ def read_refdata(name: str) -> list[dict]:
                     "developer and CI machines)")
     with path.open(newline="") as fh:
         return list(csv.DictReader(fh))
+
+
+@pytest.fixture(scope="session")
+def small_result(tmp_path_factory):
+    """A real, finished 20-step inversion of the invented corpus case (tantalum nitride on
+    silicon, tests/bad_inputs/_valid_fit_run.toml), written in this process."""
+    from inversion import cli
+
+    corpus = ROOT / "tests" / "bad_inputs"
+    out = tmp_path_factory.mktemp("small") / "small.h5"
+    code = cli.main(["-q", "invert", str(corpus / "_valid_fit_run.toml"),
+                     str(corpus / "_valid_spectrum.csv"), "-o", str(out), "--workers", "1"])
+    assert code == 0
+    return out

@@ -235,17 +235,6 @@ def test_crash_while_finalising_keeps_the_previous_state(tmp_path, monkeypatch):
 
 # ----------------------------------------------------------------------------------------------
 # damaged result files
-@pytest.fixture(scope="module")
-def small_result(tmp_path_factory):
-    """A real, finished 20-step inversion of the corpus case, written in this process."""
-    folder = tmp_path_factory.mktemp("small")
-    out = folder / "small.h5"
-    code = cli.main(["-q", "invert", str(CORPUS / "_valid_fit_run.toml"), str(SPECTRUM),
-                     "-o", str(out), "--workers", "1"])
-    assert code == 0
-    return out
-
-
 def _damaged_copies(src: Path, folder: Path):
     """(label, path) of cut-short and overwritten copies of ``src``."""
     size = src.stat().st_size

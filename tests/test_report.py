@@ -184,7 +184,7 @@ def test_missing_file(tmp_path):
     assert "\n" not in str(err.value) and "not found" in str(err.value)
 
 
-@pytest.mark.parametrize("kind", ["garbage", "truncated", "no_samples"])
+@pytest.mark.parametrize("kind", ["garbage", "truncated", "no_samples", "crashed"])
 def test_corrupt_files_are_input_errors(tmp_path, converged, kind):
     path = tmp_path / f"{kind}.h5"
     if kind == "garbage":
@@ -194,7 +194,8 @@ def test_corrupt_files_are_input_errors(tmp_path, converged, kind):
         path.write_bytes(whole[: len(whole) // 3])
     else:
         with h5py.File(path, "w") as f:
-            f.attrs["status"] = "running"
+            # "running" with nobody writing: the inversion died before finishing
+            f.attrs["status"] = "running" if kind == "crashed" else "not converged"
             f.create_group("input")
     with pytest.raises(InputError) as err:
         build_report(path, tmp_path / "out")
@@ -202,6 +203,8 @@ def test_corrupt_files_are_input_errors(tmp_path, converged, kind):
     assert "\n" not in message and message.startswith(str(path))
     if kind == "no_samples":
         assert "/posterior/samples" in message
+    if kind == "crashed":
+        assert "stopped before it finished" in message and "--resume" in message
 
 
 def test_cli_writes_pdf_and_exits_2_on_a_bad_file(tmp_path, converged, capsys):
