@@ -13,9 +13,9 @@ Text form (``#`` starts a comment)::
   ``counts`` (required) and ``channel`` (optional), in any letter case, are used by name;
   other columns are ignored.
 
-The separator is decided once per file: semicolons if any row holds one, else whitespace if
-every row has a space or tab between two cells that is not next to a comma, else commas, else
-whitespace.  In semicolon and whitespace files a comma inside a number is a decimal comma
+The separator is decided once per file: semicolons if any row holds one; otherwise commas if
+any row holds one, unless every row also has a space or tab between two cells that is not next
+to a comma (``0 12,5``), in which case whitespace separates; otherwise whitespace.  In semicolon and whitespace files a comma inside a number is a decimal comma
 (``12,5`` is 12.5); a file that writes decimal commas in one place and decimal points in
 another is refused, since ``1.234`` could then be a thousands separator.  Cells may be quoted
 (``"channel","counts"``).  The text is UTF-8, with or without a byte-order mark, or UTF-16 or
