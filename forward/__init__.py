@@ -15,6 +15,7 @@ import importlib
 _EXPORTS = {
     # errors and elements
     "InputError": "._errors",
+    "InputWarning": "._errors",
     "Element": "._elements",
     "Isotope": "._elements",
     "element": "._elements",
@@ -57,6 +58,7 @@ _EXPORTS = {
     "parse_run": "._runfile",
     "Spectrum": "._spectrum_io",
     "read_spectrum": "._spectrum_io",
+    "NonIntegerCountsWarning": "._spectrum_io",
     "write_spectrum_csv": "._spectrum_io",
     # the spectrum model
     "ForwardModel": "._model",

@@ -22,6 +22,11 @@ beam), two layouts are known by name in the trade:
   the detector, so the exit path becomes longer.
 * Cornell layout, tilt axis in the scattering plane and perpendicular to the beam:
   ``th1 = |tilt|``, ``cos th2 = -cos(theta) cos(tilt)``.
+
+Unit slips (MeV for keV, eV for keV, coulombs for microcoulombs) are caught where a value lies
+outside what the physics supports (an :class:`InputError`) or outside what an experiment
+plausibly gives (an :class:`InputWarning`); the bounds are the module constants below and the
+README lists them.
 """
 
 from __future__ import annotations
@@ -36,7 +41,7 @@ from typing import Any, Mapping
 import scipy.constants
 
 from ._elements import Isotope, element, ion, isotope, parse_formula
-from ._errors import InputError
+from ._errors import InputError, warn_input
 
 __all__ = [
     "Run",
@@ -56,14 +61,52 @@ __all__ = [
     "SCREENING_CHOICES",
     "LAYOUT_CHOICES",
     "MAX_CHANNELS",
+    "MIN_BEAM_KEV",
+    "MAX_BEAM_KEV",
+    "beam_energy_range_keV",
+    "MAX_FWHM_FRACTION",
+    "MIN_PLAUSIBLE_FWHM_KEV",
+    "MIN_PLAUSIBLE_CHARGE_UC",
+    "MIN_EDGE_CHANNELS",
 ]
 
 #: Screening corrections the cross-section module knows.
 SCREENING_CHOICES = ("andersen", "lecuyer", "none")
 #: Named tilt layouts; ``"direct"`` is recorded when both angles are given.
 LAYOUT_CHOICES = ("IBM", "Cornell")
-#: A calibration must increase over at least this many channels (2**16, common ADC sizes).
+#: A calibration must increase over at least this many channels (2**16, common ADC sizes);
+#: spectra hold at most this many channels (0 .. 65535) and the highest surface edge must lie
+#: below channel MAX_CHANNELS.
 MAX_CHANNELS = 65536
+
+#: Lowest beam energy (keV).  Below about 100 keV a helium beam is no longer a backscattering
+#: beam in the sense of the model: at 100 keV the screening corrections to the Rutherford
+#: cross-section (Andersen et al. 1980, L'Ecuyer et al. 1979; forward.screening_factor) already
+#: reach 30-40 % for the heaviest targets, beyond which these first-order forms are not meant
+#: to be used (from memory), and the model's energy tables start at 10 keV.
+MIN_BEAM_KEV = 100.0
+#: Highest 4He beam energy (keV): the top of the range of the helium electronic stopping
+#: parameterisation (Ziegler 1977, 1 keV to 10 MeV; from memory).  A 3He beam is limited to the
+#: same velocity, 10 MeV x m(3He)/m(4He), since its stopping is the 4He stopping at that velocity.
+MAX_BEAM_KEV = 10000.0
+#: The detector FWHM must be below this fraction of the beam energy.  A resolution of half the
+#: beam energy smears every surface edge over most of the spectrum, so no layer or mass can be
+#: told apart, and the Gaussian spills a large part of the counts below zero energy; silicon
+#: detectors give 10-20 keV at 2 MeV (common practice), so the bound only catches slips such
+#: as eV typed for keV.
+MAX_FWHM_FRACTION = 0.5
+#: A FWHM below this (keV) warns: no backscattering detector resolves so finely (magnetic and
+#: electrostatic analysers reach a few tenths of a keV; from memory); MeV typed for keV lands here.
+MIN_PLAUSIBLE_FWHM_KEV = 0.1
+#: A charge below this (microcoulomb) warns: RBS spectra take about 1 to 100 uC (common
+#: practice), and a charge typed in coulombs lands near 1e-6.  The same number of ions given as
+#: ``particles`` (about 6.2e9 singly charged ions) warns too.
+MIN_PLAUSIBLE_CHARGE_UC = 1e-3
+#: The highest surface edge must lie at least this many channels above zero energy
+#: (``K E0 / keV_per_channel``).  Backscattering spectra span hundreds to thousands of channels
+#: (common practice); fewer than this cannot show a single layer, and a gain typed in eV per
+#: channel lands here.
+MIN_EDGE_CHANNELS = 16
 
 _TOP_KEYS = ("title", "beam", "geometry", "detector", "calibration", "exposure", "layer",
              "physics", "fit")
@@ -120,6 +163,23 @@ def check_angle_triple(scattering_deg: float, incidence_deg: float, exit_deg: fl
     """
     side = 180.0 - scattering_deg
     return abs(incidence_deg - exit_deg) <= side + tol_deg and side <= incidence_deg + exit_deg + tol_deg
+
+
+def beam_energy_range_keV(beam_ion: Isotope) -> tuple[float, float]:
+    """Lowest and highest beam energy (keV) accepted for a helium ion.
+
+    Parameters
+    ----------
+    beam_ion : Isotope
+        The beam ion (4He or 3He).
+
+    Returns
+    -------
+    (low_keV, high_keV) : tuple of float
+        :data:`MIN_BEAM_KEV`, and :data:`MAX_BEAM_KEV` scaled to the same velocity as 4He at
+        that energy (``MAX_BEAM_KEV * m / m(4He)``).
+    """
+    return MIN_BEAM_KEV, MAX_BEAM_KEV * beam_ion.mass_u / ion("4He").mass_u
 
 
 # ----------------------------------------------------------------------------------------------
@@ -467,11 +527,15 @@ def load_run(path) -> Run:
     if p.is_dir():
         raise InputError("this is a folder, not a run file; give the path of a .toml file", where=str(path))
     data = p.read_bytes()
+    from ._spectrum_io import decode_text
+
     try:
-        text = data.decode("utf-8")
+        # UTF-8, or a byte-order mark for UTF-8 (dropped), UTF-16 or UTF-32
+        text, _ = decode_text(data)
     except UnicodeDecodeError as exc:
-        raise InputError(f"not a UTF-8 text file (byte {exc.start}); a run file is TOML text",
-                         where=str(path)) from None
+        encoding = "UTF-8" if exc.encoding.startswith("utf-8") else exc.encoding.upper()
+        raise InputError(f"not a {encoding} text file (byte {exc.start}); a run file is TOML "
+                         "text", where=str(path)) from None
     return parse_run(text, source=str(path), base_dir=p.resolve().parent)
 
 
@@ -490,6 +554,7 @@ def parse_run(text: str, source: str = "<string>", base_dir=None) -> Run:
     base_dir : str or Path, optional
         Folder against which relative paths are resolved (default: the current folder).
     """
+    text = text.removeprefix("\ufeff")  # a byte-order mark left by an editor
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -599,6 +664,11 @@ def _fmt(v: float) -> str:
     return f"{v:g}"
 
 
+def _hinted(what: str, hint: str, allowed: str) -> str:
+    """``<what is wrong>; [<likely slip>] allowed: <what is allowed>`` (the house form)."""
+    return f"{what}; {hint + ' ' if hint else ''}allowed: {allowed}"
+
+
 def _range_text(low, high, low_open, high_open, unit) -> str:
     u = f" {unit}" if unit else ""
     if low is not None and high is not None:
@@ -615,10 +685,11 @@ def _build(raw: dict, source: str, text: str, base_dir: Path) -> Run:
     title = top.string("title", "")
     beam = _read_beam(source, top)
     geometry = _read_geometry(source, top)
-    detector = _read_detector(source, top)
+    detector = _read_detector(source, top, beam)
     calibration = _read_calibration(source, top)
     exposure = _read_exposure(source, top)
     layers = _read_layers(source, top)
+    _check_calibration_reach(source, beam, geometry, calibration, layers)
     physics = _read_physics(source, top, layers, base_dir)
     fit = raw.get("fit", {})
     if not isinstance(fit, dict):
@@ -643,7 +714,29 @@ def _read_beam(source, top) -> Beam:
         beam_ion = ion(species)
     except InputError as exc:
         raise InputError(exc.message, where=t.where("ion")) from None
-    energy = t.number("energy_keV", low=0.0, unit="keV")
+    low, high = beam_energy_range_keV(beam_ion)
+    allowed = f"{low:g} to {high:.0f} keV" + ("" if species == "4He" else f" for {species}")
+    energy = t.number("energy_keV", unit="keV", allowed_text=allowed)
+    where = t.where("energy_keV")
+    if energy <= 0:
+        raise InputError(f"{_fmt(energy)} is out of range; allowed: {allowed}", where=where)
+    if energy < low:
+        hint = "did you give MeV?" if low <= 1000.0 * energy <= high else ""
+        raise InputError(_hinted(f"{_fmt(energy)} keV is far below any backscattering beam",
+                                 hint, allowed), where=where)
+    if energy > high:
+        hint = "did you give eV?" if low <= energy / 1000.0 <= high else ""
+        raise InputError(_hinted(f"{_fmt(energy)} keV is above {high:.0f} keV, the top of the "
+                                 "helium stopping parameterisation", hint, allowed), where=where)
+    from ._stopping import VALIDATED_MAX_KEV, StoppingRangeWarning
+
+    validated = VALIDATED_MAX_KEV * beam_ion.mass_u / ion("4He").mass_u
+    if energy > validated:
+        # the README promises this warning; stacklevel 4 names the caller of load_run/parse_run
+        warn_input(f"{species} at {_fmt(energy)} keV is above {validated:.0f} keV, the highest "
+                   "energy at which the helium stopping has been compared with NIST ASTAR; "
+                   "expect stopping errors of several per cent", where=where,
+                   category=StoppingRangeWarning, stacklevel=4)
     return Beam(beam_ion, energy)
 
 
@@ -688,9 +781,23 @@ def _read_geometry(source, top) -> Geometry:
     return Geometry(theta, th1, th2, "direct", None)
 
 
-def _read_detector(source, top) -> Detector:
+def _read_detector(source, top, beam: Beam) -> Detector:
     t = _section(source, top, "detector", ("fwhm_keV", "solid_angle_msr"))
-    fwhm = t.number("fwhm_keV", low=0.0, unit="keV")
+    # see MAX_FWHM_FRACTION for why the resolution must stay below half the beam energy
+    limit = MAX_FWHM_FRACTION * beam.energy_keV
+    allowed = f"(0, {limit:g}) keV, below half the {beam.energy_keV:g} keV beam energy"
+    fwhm = t.number("fwhm_keV", low=0.0, unit="keV", allowed_text=allowed)
+    where = t.where("fwhm_keV")
+    if fwhm >= limit:
+        hint = "did you give eV?" if MIN_PLAUSIBLE_FWHM_KEV <= fwhm / 1000.0 < limit else ""
+        raise InputError(_hinted(f"{_fmt(fwhm)} keV is not small compared with the beam energy: "
+                                 "it would smear every edge over most of the spectrum", hint,
+                                 allowed), where=where)
+    if fwhm < MIN_PLAUSIBLE_FWHM_KEV:
+        hint = " did you give MeV?" if 1000.0 * fwhm < limit else ""
+        warn_input(f"{_fmt(fwhm)} keV is finer than any backscattering detector resolves (silicon "
+                   f"detectors about 10 to 20 keV, magnetic or electrostatic analysers a few "
+                   f"tenths of a keV);{hint} the value is used as given", where=where, stacklevel=4)
     omega = t.number("solid_angle_msr", low=0.0, high=4000.0 * math.pi, unit="msr")
     return Detector(fwhm, omega)
 
@@ -708,6 +815,75 @@ def _read_calibration(source, top) -> Calibration:
     return Calibration(gain, offset, quad)
 
 
+def _highest_edge(beam: Beam, geometry: Geometry, layers) -> tuple[float, str]:
+    """``(K E0, text)`` of the heaviest isotope in the sample, or the beam energy if none scatters.
+
+    ``K E0`` bounds every signal from above: it is the energy of an ion scattered at the
+    surface by the heaviest atom, before any energy loss.
+    """
+    from ._kinematics import kinematic_factor
+
+    heaviest = None
+    for layer in layers:
+        for sym in layer.fractions:
+            for iso, frac in layer.isotope_fractions(sym):
+                if frac > 0 and iso.mass_u > beam.ion.mass_u and (
+                        heaviest is None or iso.mass_u > heaviest.mass_u):
+                    heaviest = iso
+    if heaviest is None:
+        return beam.energy_keV, f"the beam energy ({beam.energy_keV:g} keV)"
+    top = kinematic_factor(beam.ion.mass_u, heaviest.mass_u, geometry.scattering_deg) * beam.energy_keV
+    return top, f"the highest surface edge (K E0 of {heaviest.label}, {top:.1f} keV)"
+
+
+def _check_calibration_reach(source, beam: Beam, geometry: Geometry, calibration: Calibration,
+                             layers) -> None:
+    """The highest surface edge must lie in a channel a spectrum can hold, with room below it.
+
+    Refuses a gain so coarse that the whole spectrum fits into a handful of channels (eV per
+    channel typed for keV), an offset above every signal, and a gain so fine that the signals
+    lie beyond the last channel a spectrum may have (MeV per channel typed for keV).
+    """
+    top, edge = _highest_edge(beam, geometry, layers)
+    gain, offset = calibration.keV_per_channel, calibration.offset_keV
+    where = f"{source}: calibration."
+    span = top / gain
+    if span < MIN_EDGE_CHANNELS:
+        hint = ("did you give eV per channel?"
+                if top / (gain / 1000.0) >= MIN_EDGE_CHANNELS else "")
+        raise InputError(_hinted(f"{_fmt(gain)} keV per channel puts everything from zero energy "
+                                 f"up to {edge} into {span:.3g} channels", hint,
+                                 f"at most {top / MIN_EDGE_CHANNELS:.4g} keV per channel, so that "
+                                 f"the edge lies at least {MIN_EDGE_CHANNELS} channels above zero "
+                                 "energy"), where=where + "keV_per_channel")
+    if offset >= top:
+        # an offset many times the beam energy is no keV value anyone meant
+        hint = ("did you give eV?" if offset > 5.0 * beam.energy_keV and offset / 1000.0 < top
+                else "")
+        if offset >= beam.energy_keV:
+            what = (f"the beam energy {beam.energy_keV:g} keV is not above the lowest channel's "
+                    f"energy {offset:g} keV, so no backscattered particle can reach the spectrum")
+        else:
+            what = (f"channel 0 starts at {offset:g} keV, above {edge}, so no backscattered "
+                    "particle can reach the spectrum")
+        raise InputError(_hinted(what, hint, f"an offset below {top:.1f} keV"),
+                         where=where + "offset_keV")
+    channel = calibration.channel_of(top)
+    if not (math.isfinite(channel) and channel < MAX_CHANNELS):
+        at = f"channel {channel:.0f}" if math.isfinite(channel) else "no channel"
+        what = (f"the calibration puts {edge} in {at}, beyond the {MAX_CHANNELS} channels a "
+                "spectrum may have")
+        allowed = f"a calibration that puts it below channel {MAX_CHANNELS}"
+        if offset < 0 and Calibration(gain, 0.0, calibration.quadratic_keV).channel_of(top) \
+                < MAX_CHANNELS:
+            # the gain alone would be fine: the negative offset pushes the edge out
+            raise InputError(_hinted(what, "", allowed), where=where + "offset_keV")
+        coarser = top / (gain * 1000.0)
+        hint = ("did you give MeV per channel?"
+                if MIN_EDGE_CHANNELS <= coarser < MAX_CHANNELS else "")
+        raise InputError(_hinted(what, hint, allowed), where=where + "keV_per_channel")
+
+
 def _read_exposure(source, top) -> Exposure:
     t = _section(source, top, "exposure", ("charge_uC", "particles", "charge_state", "live_fraction"))
     if t.has("charge_uC") == t.has("particles"):
@@ -721,7 +897,20 @@ def _read_exposure(source, top) -> Exposure:
         raise InputError(f"expected the whole number 1 or 2 (charge of the helium ions in units of "
                          f"e), got {_kind(state)}", where=t.where("charge_state"))
     live = t.number("live_fraction", 1.0, low=0.0, high=1.0)
-    return Exposure(charge, particles, state, live)
+    exposure = Exposure(charge, particles, state, live)
+    if charge is not None and charge < MIN_PLAUSIBLE_CHARGE_UC:
+        hint = (" did you give coulombs (1 uC = 1e-6 C)?"
+                if MIN_PLAUSIBLE_CHARGE_UC <= charge * 1e6 <= 1e5 else "")
+        warn_input(f"{_fmt(charge)} uC is implausibly small for a backscattering spectrum (they take "
+                   f"about 1 to 100 uC);{hint} the value is used as microcoulombs",
+                   where=t.where("charge_uC"), stacklevel=4)
+    fewest = MIN_PLAUSIBLE_CHARGE_UC * 1e-6 / scipy.constants.e
+    if particles is not None and particles < fewest:
+        warn_input(f"{_fmt(particles)} ions are implausibly few for a backscattering spectrum "
+                   f"(1 uC of singly charged ions is {1e-6 / scipy.constants.e:.3g} ions; "
+                   f"warning below {fewest:.2g}); did you give a charge? the value is used as a "
+                   "number of ions", where=t.where("particles"), stacklevel=4)
+    return exposure
 
 
 def _read_layers(source, top) -> list[Layer]:

@@ -6,6 +6,7 @@ All samples are invented scenarios.
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 import periodictable
@@ -305,3 +306,216 @@ def test_the_documented_example_is_valid():
     run = parse_run(example, source="README.md")
     assert [layer.name for layer in run.layers] == ["contact", "oxide", "wafer"]
     assert run.geometry.layout == "IBM" and run.geometry.exit_deg == pytest.approx(22.0)
+
+
+# ----------------------------------------------------------------------------------------------
+# encodings
+CORPUS = __import__("pathlib").Path(__file__).resolve().parent / "bad_inputs"
+
+
+@pytest.mark.parametrize("name", ["run_utf8_bom.toml", "run_utf16_bom.toml"])
+def test_run_files_saved_with_a_byte_order_mark_read(name):
+    # the same invented TaN-on-Si run as _valid_run.toml, saved by other editors
+    run = load_run(CORPUS / name)
+    plain = load_run(CORPUS / "_valid_run.toml")
+    assert run.beam.energy_keV == 2000.0 and run.calibration.keV_per_channel == 2.2
+    assert [layer.name for layer in run.layers] == ["barrier", "wafer"]
+    assert run.layers[0].areal_density_1e15 == 180.0
+    assert run.raw == plain.raw
+    assert not run.text.startswith("\ufeff")
+
+
+def test_parse_run_drops_a_byte_order_mark():
+    assert parse_run("\ufeff" + GOOD).beam.energy_keV == 1500.0
+
+
+# ----------------------------------------------------------------------------------------------
+# unit slips
+def _err(change, source="r.toml"):
+    with pytest.raises(forward.InputError) as err:
+        parse_run(GOOD.replace(*change), source=source)
+    text = str(err.value)
+    assert "\n" not in text
+    return text
+
+
+def _quiet(text):
+    """Parse without any warning."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        return parse_run(text)
+
+
+@pytest.mark.parametrize("energy, fragment", [
+    ("1.5", "1.5 keV is far below any backscattering beam; did you give MeV? allowed: 100 to "
+            "7535 keV for 3He"),
+    ("50.0", "50 keV is far below any backscattering beam; allowed: 100 to 7535 keV for 3He"),
+    ("0.0", "0 is out of range; allowed: 100 to 7535 keV for 3He"),
+    ("1.5e6", "1.5e+06 keV is above 7535 keV, the top of the helium stopping parameterisation; "
+              "did you give eV? allowed"),
+    ("7600.0", "7600 keV is above 7535 keV"),
+    ("inf", "inf is not finite; allowed: 100 to 7535 keV for 3He"),
+])
+def test_beam_energy_range_3he(energy, fragment):
+    text = _err(("energy_keV = 1500.0", f"energy_keV = {energy}"))
+    assert text.startswith("r.toml: beam.energy_keV: ")
+    assert fragment in text
+
+
+def test_beam_energy_range_edges():
+    # 4He: 100 to 10000 keV; 3He to the same velocity, 10000 keV x m(3He)/m(4He)
+    # (masses: periodictable)
+    he4 = GOOD.replace('ion = "3He"', 'ion = "4He"').replace("charge_state = 2\n", "")
+    for e in ("100.0", "10000.0"):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", forward.StoppingRangeWarning)
+            assert parse_run(he4.replace("energy_keV = 1500.0", f"energy_keV = {e}")).beam
+    for e in ("99.9", "10000.5"):
+        with pytest.raises(forward.InputError, match="allowed: 100 to 10000 keV$"):
+            parse_run(he4.replace("energy_keV = 1500.0", f"energy_keV = {e}"))
+    top = 10000.0 * periodictable.He[3].mass / periodictable.He[4].mass
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", forward.StoppingRangeWarning)
+        assert parse_run(GOOD.replace("energy_keV = 1500.0", f"energy_keV = {top - 1:.1f}"))
+    _err(("energy_keV = 1500.0", f"energy_keV = {top + 1:.1f}"))
+
+
+@pytest.mark.parametrize("species, energy, warns", [
+    ("4He", 3000.0, False), ("4He", 3001.0, True),
+    # 3He: same velocity as 4He at 3000 keV, 3000 x 3.016/4.003 = 2260.6 keV (periodictable)
+    ("3He", 2250.0, False), ("3He", 2270.0, True),
+])
+def test_stopping_range_warning_when_loading(species, energy, warns, tmp_path):
+    text = GOOD.replace('ion = "3He"', f'ion = "{species}"').replace(
+        "energy_keV = 1500.0", f"energy_keV = {energy}")
+    path = tmp_path / "hot.toml"
+    path.write_text(text)
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        load_run(path)
+    ours = [w for w in record if issubclass(w.category, forward.StoppingRangeWarning)]
+    assert len(ours) == (1 if warns else 0)
+    if warns:
+        message = str(ours[0].message)
+        assert message.startswith(f"{path}: beam.energy_keV: {species} at {energy:g} keV is "
+                                  "above ")
+        assert "NIST ASTAR" in message and "\n" not in message
+
+
+@pytest.mark.parametrize("fwhm, fragment", [
+    ("750.0", "750 keV is not small compared with the beam energy: it would smear every edge "
+              "over most of the spectrum; did you give eV? allowed: (0, 750) keV, below half the "
+              "1500 keV beam energy"),
+    ("18000.0", "did you give eV?"),
+    ("1e9", "1e+09 keV is not small compared with the beam energy: it would smear every edge "
+            "over most of the spectrum; allowed: (0, 750) keV"),
+    ("0.0", "0 is out of range; allowed: (0, 750) keV"),
+])
+def test_fwhm_must_be_small_compared_with_the_beam(fwhm, fragment):
+    text = _err(("fwhm_keV = 18.0", f"fwhm_keV = {fwhm}"))
+    assert text.startswith("r.toml: detector.fwhm_keV: ") and fragment in text
+    assert _quiet(GOOD.replace("fwhm_keV = 18.0", "fwhm_keV = 749.0")).detector.fwhm_keV == 749.0
+
+
+def test_tiny_fwhm_warns():
+    with pytest.warns(forward.InputWarning) as record:
+        run = parse_run(GOOD.replace("fwhm_keV = 18.0", "fwhm_keV = 0.018"), source="r.toml")
+    assert run.detector.fwhm_keV == 0.018 and len(record) == 1
+    assert str(record[0].message).startswith("r.toml: detector.fwhm_keV: 0.018 keV is finer than "
+                                             "any backscattering detector resolves")
+    assert "did you give MeV?" in str(record[0].message)
+    _quiet(GOOD.replace("fwhm_keV = 18.0", "fwhm_keV = 0.1"))
+
+
+@pytest.mark.parametrize("change, key, fragment", [
+    (("charge_uC = 20.0", "charge_uC = 2e-5"), "exposure.charge_uC",
+     "2e-05 uC is implausibly small for a backscattering spectrum (they take about 1 to 100 uC); "
+     "did you give coulombs (1 uC = 1e-6 C)? the value is used as microcoulombs"),
+    (("charge_uC = 20.0", "charge_uC = 1e-12"), "exposure.charge_uC",
+     "1e-12 uC is implausibly small for a backscattering spectrum (they take about 1 to 100 uC); "
+     "the value"),
+    (("charge_uC = 20.0", "particles = 20.0"), "exposure.particles",
+     "20 ions are implausibly few"),
+])
+def test_implausible_exposure_warns(change, key, fragment):
+    with pytest.warns(forward.InputWarning) as record:
+        run = parse_run(GOOD.replace(*change), source="r.toml")
+    assert len(record) == 1
+    assert str(record[0].message).startswith(f"r.toml: {key}: {fragment}")
+    assert run.exposure.incident_particles > 0  # used as given
+    _quiet(GOOD.replace("charge_uC = 20.0", "charge_uC = 1e-3"))
+    _quiet(GOOD.replace("charge_uC = 20.0", "particles = 1e10"))
+
+
+# The GOOD run: 3He at 1500 keV, 150 degrees, heaviest atom 59Co; its surface edge K E0 is
+# 1239.0 keV (the message takes K from forward.kinematic_factor, tested in test_kinematics.py).
+LINEAR = ("quadratic_keV = 1e-5\n", "")
+
+
+def test_highest_surface_edge_names_the_heaviest_isotope():
+    k = forward.kinematic_factor(periodictable.He[3].mass, periodictable.Co[59].mass, 150.0)
+    text = _err(("offset_keV = -12.0", "offset_keV = 1300.0"))
+    assert f"(K E0 of 59Co, {k * 1500.0:.1f} keV)" in text
+
+
+@pytest.mark.parametrize("changes, key, fragment", [
+    # eV per channel typed for keV per channel: the spectrum shrinks into one channel
+    ([("keV_per_channel = 1.5", "keV_per_channel = 1500.0")], "calibration.keV_per_channel",
+     "1500 keV per channel puts everything from zero energy up to the highest surface edge "
+     "(K E0 of 59Co, 1239.0 keV) into 0.826 channels; did you give eV per channel? allowed: at "
+     "most 77.44 keV per channel, so that the edge lies at least 16 channels above zero energy"),
+    # MeV per channel: the edge lies beyond the last channel
+    ([("keV_per_channel = 1.5", "keV_per_channel = 0.0015"), LINEAR],
+     "calibration.keV_per_channel", "(K E0 of 59Co, 1239.0 keV) in channel 833990, beyond the "
+     "65536 channels a spectrum may have; did you give MeV per channel? allowed: a calibration "
+     "that puts it below channel 65536"),
+    ([("keV_per_channel = 1.5", "keV_per_channel = 1e-5"), LINEAR],
+     "calibration.keV_per_channel", "beyond the 65536 channels a spectrum may have; allowed"),
+    ([("offset_keV = -12.0", "offset_keV = 1300.0")], "calibration.offset_keV",
+     "channel 0 starts at 1300 keV, above the highest surface edge (K E0 of 59Co, 1239.0 keV), "
+     "so no backscattered particle can reach the spectrum; allowed: an offset below 1239.0 keV"),
+    ([("offset_keV = -12.0", "offset_keV = 12000.0")], "calibration.offset_keV",
+     "the beam energy 1500 keV is not above the lowest channel's energy 12000 keV, so no "
+     "backscattered particle can reach the spectrum; did you give eV? allowed"),
+    ([("offset_keV = -12.0", "offset_keV = -2e5")], "calibration.offset_keV",
+     "beyond the 65536 channels a spectrum may have; allowed"),
+])
+def test_calibration_must_reach_the_signals(changes, key, fragment):
+    text = GOOD
+    for change in changes:
+        text = text.replace(*change)
+    with pytest.raises(forward.InputError) as err:
+        parse_run(text, source="r.toml")
+    assert str(err.value).startswith(f"r.toml: {key}: ")
+    assert fragment in str(err.value)
+
+
+def test_calibration_edges_that_pass():
+    # the edge 16 channels above zero energy, and just below channel 65536
+    coarse = _quiet(GOOD.replace("keV_per_channel = 1.5", "keV_per_channel = 77.0"))
+    assert coarse.calibration.keV_per_channel == 77.0
+    fine = _quiet(GOOD.replace(*LINEAR).replace("keV_per_channel = 1.5",
+                                                "keV_per_channel = 0.0191"))
+    assert 65000 < fine.calibration.channel_of(1239.0) < 65536
+
+
+def test_calibration_check_without_any_scattering_atom():
+    # a hydrogen film cannot turn helium beyond 90 degrees: the beam energy bounds the signals
+    text = GOOD.split("[[layer]]")[0] + "[[layer]]\nformula = \"H\"\nareal_density_1e15 = 5.0\n"
+    assert _quiet(text).layers[0].fractions == {"H": 1.0}
+    with pytest.raises(forward.InputError, match=r"calibration\.keV_per_channel: 1000 keV per "
+                                                 r"channel puts everything from zero energy up to "
+                                                 r"the beam energy \(1500 keV\)"):
+        parse_run(text.replace("keV_per_channel = 1.5", "keV_per_channel = 1000.0"))
+
+
+def test_overrides_meet_the_same_checks(run):
+    with pytest.raises(forward.InputError, match="series.toml: calibration.keV_per_channel: "
+                                                 "1500 keV per channel"):
+        run.with_overrides({"calibration": {"keV_per_channel": 1500.0}}, source="series.toml")
+    with pytest.raises(forward.InputError, match="series.toml: beam.energy_keV: 1.5 keV is far"):
+        run.with_overrides({"beam": {"energy_keV": 1.5}}, source="series.toml")
+
+
+def test_no_warning_for_the_good_run():
+    assert _quiet(GOOD).title.startswith("invented")

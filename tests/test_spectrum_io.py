@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import warnings
+from pathlib import Path
 
 import h5py
 import numpy as np
@@ -55,14 +56,34 @@ def test_gaps_are_kept(tmp_path):
     assert s.channel.tolist() == [0, 1, 5] and s.has_gaps
 
 
-def test_non_integer_counts_warn(tmp_path):
-    path = _write(tmp_path, "f.txt", "1\n2.5\n3\n")
-    with pytest.warns(NonIntegerCountsWarning, match=r"line 2: 1 count\(s\) are not whole"):
+def test_non_integer_counts_warn_once_naming_the_file(tmp_path):
+    path = _write(tmp_path, "f.txt", "1\n2.5\n3\n4.25\n")
+    with pytest.warns(NonIntegerCountsWarning) as record:
         s = forward.read_spectrum(path)
-    assert s.counts.tolist() == [1.0, 2.5, 3.0]
+    assert len(record) == 1
+    text = str(record[0].message)
+    assert text.startswith(f"{path}: 2 of 4 counts are not whole numbers (the first, 2.5, at "
+                           "line 2); they are read as they are")
+    assert "\n" not in text
+    assert s.counts.tolist() == [1.0, 2.5, 3.0, 4.25] and s.whole_counts is False
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        forward.read_spectrum(_write(tmp_path, "i.txt", "1\n2.0\n3\n"))  # whole numbers: silent
+        whole = forward.read_spectrum(_write(tmp_path, "i.txt", "1\n2.0\n3\n"))  # silent
+    assert whole.whole_counts is True
+
+
+def test_non_integer_counts_in_hdf5_name_the_dataset_row(tmp_path):
+    path = tmp_path / "frac.h5"
+    with h5py.File(path, "w") as f:
+        f["s"] = np.array([4.0, 5.0, 6.5])
+    with pytest.warns(NonIntegerCountsWarning, match=r"frac\.h5:/s: 1 of 3 counts .* at row 2\)"):
+        s = forward.read_spectrum(f"{path}:/s")
+    assert s.whole_counts is False
+
+
+def test_whole_counts_is_worked_out_for_a_spectrum_built_directly():
+    assert forward.Spectrum(np.arange(2), np.array([1.0, 2.0]), "x").whole_counts is True
+    assert forward.Spectrum(np.arange(2), np.array([1.0, 2.5]), "x").whole_counts is False
 
 
 def test_hdf5_one_and_two_dimensional(tmp_path):
@@ -143,3 +164,119 @@ def test_missing_file(tmp_path):
         forward.read_spectrum(tmp_path / "absent.csv")
     with pytest.raises(forward.InputError, match="HDF5 file not found"):
         forward.read_spectrum(f"{tmp_path}/absent.h5:/s")
+
+
+# ----------------------------------------------------------------------------------------------
+# files as editors and spreadsheets save them (invented numbers)
+CORPUS = Path(__file__).resolve().parent / "bad_inputs"
+
+
+@pytest.mark.parametrize("name", ["capitalised_header.csv", "quoted_cells.csv",
+                                  "semicolon_decimal_commas.csv", "semicolon_two_columns.csv",
+                                  "tab_decimal_commas.txt", "utf8_bom.csv", "utf16_bom.csv"])
+def test_corpus_files_people_save_read_back(name):
+    # every one of these files holds channels 0, 1, 2 with counts 12, 15, 9
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        s = forward.read_spectrum(CORPUS / name)
+    assert s.channel.tolist() == [0, 1, 2]
+    assert s.counts.tolist() == [12.0, 15.0, 9.0]
+    assert s.whole_counts
+
+
+@pytest.mark.parametrize("text, channel, counts", [
+    # header names in any letter case, quoted or not
+    ("CHANNEL,COUNTS\n3,1\n4,2\n", [3, 4], [1.0, 2.0]),
+    ("'Counts'\n7\n8\n", [0, 1], [7.0, 8.0]),
+    ("\"channel\", \"counts\"\n5, 6\n", [5], [6.0]),
+    # semicolons with decimal commas, and with decimal points
+    ("Channel;Energy_keV;Counts\n0;35,5;12\n1;37,75;13\n", [0, 1], [12.0, 13.0]),
+    ("0;12.0\n1;13.0\n", [0, 1], [12.0, 13.0]),
+    ("channel;counts\n0;1,5e3\n1;2,0e3\n", [0, 1], [1500.0, 2000.0]),
+    # whitespace with decimal commas
+    ("channel counts energy_keV\n0 12 35,5\n1 13 37,75\n", [0, 1], [12.0, 13.0]),
+    ("10\t4,0\n11\t5,0\n", [10, 11], [4.0, 5.0]),
+    # a comma next to a space is a separator, not a decimal comma
+    ("0, 12\n1, 13\n", [0, 1], [12.0, 13.0]),
+])
+def test_kind_reader_numbers(tmp_path, text, channel, counts):
+    s = forward.read_spectrum(_write(tmp_path, "k.csv", text))
+    assert s.channel.tolist() == channel
+    assert s.counts.tolist() == counts
+
+
+def test_decimal_commas_in_counts_are_read_as_fractions(tmp_path):
+    path = _write(tmp_path, "dc.csv", "channel;counts\n0;12,5\n1;3\n")
+    with pytest.warns(NonIntegerCountsWarning, match="1 of 2 counts"):
+        s = forward.read_spectrum(path)
+    assert s.counts.tolist() == [12.5, 3.0]
+
+
+@pytest.mark.parametrize("encoding", ["utf-16", "utf-16-be", "utf-32"])
+def test_unicode_with_byte_order_mark(tmp_path, encoding):
+    import codecs
+
+    bom = {"utf-16": b"", "utf-16-be": codecs.BOM_UTF16_BE, "utf-32": b""}[encoding]
+    path = tmp_path / "u.csv"
+    path.write_bytes(bom + "# \u00b5C noted\r\nChannel,Counts\r\n0,4\r\n1,5\r\n".encode(encoding))
+    s = forward.read_spectrum(path)
+    assert s.channel.tolist() == [0, 1] and s.counts.tolist() == [4.0, 5.0]
+
+
+def test_utf16_without_byte_order_mark_is_named(tmp_path):
+    path = tmp_path / "u.csv"
+    path.write_bytes("channel,counts\n0,4\n".encode("utf-16-le"))
+    with pytest.raises(forward.InputError, match="UTF-16 text without a byte-order mark"):
+        forward.read_spectrum(path)
+    path.write_bytes("0,4\n".encode("utf-16") + b"\x00\x00")  # a NUL character inside
+    with pytest.raises(forward.InputError, match="binary data"):
+        forward.read_spectrum(path)
+
+
+@pytest.mark.parametrize("text, fragment", [
+    ("channel;counts\n0;1,5\n1;2.5\n", "line 3: decimal commas? line 2 writes '1,5'"),
+    ("0 1,5\n1 2.5\n", "decimal commas?"),
+    ("counts,Counts\n1,2\n", "appears twice"),
+    ("channel,counts\n0,12,5\n", "ragged row: 3 cells where the header has 2 (decimal commas?"),
+    ("12,5\n13,0\n9,5\n", "line 3: channel 9 does not follow channel 13 (decimal commas?"),
+])
+def test_decimal_mark_problems_are_named(tmp_path, text, fragment):
+    path = _write(tmp_path, "d.csv", text)
+    with pytest.raises(forward.InputError) as err:
+        forward.read_spectrum(path)
+    assert str(err.value).startswith(str(path)) and fragment in str(err.value)
+
+
+def test_no_decimal_comma_hint_where_points_are_used(tmp_path):
+    path = _write(tmp_path, "p.csv", "0,2.5,1\n1,2.7,3\n")
+    with pytest.raises(forward.InputError) as err:
+        forward.read_spectrum(path)
+    assert "3 columns without a header" in str(err.value)
+    assert "decimal commas" not in str(err.value)
+
+
+def test_channel_limit(tmp_path):
+    ok = forward.read_spectrum(_write(tmp_path, "ok.csv", "0,1\n65535,2\n"))
+    assert ok.channel.tolist() == [0, 65535]
+    for bad in ("65536", "4294967296", "1e300"):
+        with pytest.raises(forward.InputError) as err:
+            forward.read_spectrum(_write(tmp_path, "big.csv", f"0,1\n{bad},2\n"))
+        assert str(err.value).startswith(f"{tmp_path / 'big.csv'}: line 2: channel ")
+        assert "is above 65535; allowed: whole numbers from 0 to 65535" in str(err.value)
+
+
+def test_one_column_row_limit(tmp_path):
+    full = forward.read_spectrum(_write(tmp_path, "full.txt", "1\n" * 65536))
+    assert full.channel[-1] == 65535
+    with pytest.raises(forward.InputError, match=r"line 65537: 65537 rows of counts, more than "
+                                                 "the 65536 channels"):
+        forward.read_spectrum(_write(tmp_path, "over.txt", "1\n" * 65537))
+
+
+def test_hdf5_channel_limit_names_the_row(tmp_path):
+    path = tmp_path / "big.h5"
+    with h5py.File(path, "w") as f:
+        f["s"] = np.array([[0.0, 1.0], [2.0 ** 32, 2.0]])
+    with pytest.raises(forward.InputError) as err:
+        forward.read_spectrum(f"{path}:/s")
+    assert str(err.value).startswith(f"{path}:/s[1]: channel 4294967296 is above 65535")
