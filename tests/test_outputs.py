@@ -192,11 +192,14 @@ _FORK_AND_DIE = """
 import os, sys, time
 from inversion._outputs import WriterLock, release_inherited_locks
 lock = WriterLock(sys.argv[1]).acquire()
+ready_r, ready_w = os.pipe()
 child = os.fork()
 if child == 0:           # a worker process: drops its inherited copy, then lives on
     release_inherited_locks()
+    os.write(ready_w, b"x")
     time.sleep(30)
     os._exit(0)
+os.read(ready_r, 1)      # the worker has dropped its copy
 print(child, flush=True)
 time.sleep(30)
 """
