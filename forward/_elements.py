@@ -100,6 +100,29 @@ def ion(species: str) -> Isotope:
 _TOKEN = re.compile(r"([A-Z][a-z]?)((?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)?")
 
 
+def capitalisation_slips(formula: str) -> list[tuple[str, str]]:
+    """Two one-letter symbols written together that would also read as one element.
+
+    ``"HFO2"`` reads as hydrogen, fluorine and oxygen, but was most likely meant as hafnium
+    oxide; ``"CO"`` reads as carbon and oxygen but could be cobalt.  Returns ``[(as read,
+    the element it could be), ...]``, e.g. ``[("HF", "Hf")]``; elements beyond uranium are not
+    offered.
+    """
+    tokens = [(m.group(1), m.group(2)) for m in _TOKEN.finditer(formula.replace(" ", ""))]
+    out = []
+    for (a, num_a), (b, _) in zip(tokens, tokens[1:]):
+        if len(a) != 1 or len(b) != 1 or num_a:
+            continue
+        candidate = a + b.lower()
+        try:
+            el = element(candidate)
+        except InputError:
+            continue
+        if el.z <= 92:
+            out.append((a + b, candidate))
+    return out
+
+
 def parse_formula(formula: str) -> dict[str, float]:
     """Parse a formula such as ``"SiO2"`` or ``"Ni0.45Ge0.55"`` into atom fractions.
 

@@ -40,7 +40,7 @@ from typing import Any, Mapping
 
 import scipy.constants
 
-from ._elements import Isotope, element, ion, isotope, parse_formula
+from ._elements import Isotope, capitalisation_slips, element, ion, isotope, parse_formula
 from ._errors import InputError, warn_input
 
 __all__ = [
@@ -940,6 +940,11 @@ def _read_layers(source, top) -> list[Layer]:
             fractions = parse_formula(formula)
         except InputError as exc:
             raise InputError(exc.message, where=t.where("formula")) from None
+        for read, meant in capitalisation_slips(formula):
+            warn_input(f"{formula!r} reads {read!r} as the two elements {read[0]} and "
+                       f"{read[1]}; if you meant {meant} (Z = {element(meant).z}) write "
+                       f"{formula.replace(read, meant, 1)!r} (symbols are case-sensitive)",
+                       where=t.where("formula"))
         substrate = t.boolean("substrate", False)
         if substrate and i != len(entries):
             raise InputError(f"only the last layer can be the substrate, but this is layer {i} of "

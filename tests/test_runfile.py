@@ -519,3 +519,13 @@ def test_overrides_meet_the_same_checks(run):
 
 def test_no_warning_for_the_good_run():
     assert _quiet(GOOD).title.startswith("invented")
+
+
+def test_capitalisation_slips_are_named():
+    # symbols are case-sensitive (IUPAC): "HF" is hydrogen and fluorine, "Hf" hafnium
+    from forward._elements import capitalisation_slips
+
+    assert capitalisation_slips("HFO2") == [("HF", "Hf")]
+    assert capitalisation_slips("NI3Si") == [("NI", "Ni")]
+    assert capitalisation_slips("SiO2") == [] and capitalisation_slips("Ta0.55N0.45") == []
+    assert capitalisation_slips("C2O") == []  # a number between them: clearly two elements
