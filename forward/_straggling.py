@@ -39,7 +39,7 @@ from scipy import constants
 
 from ._elements import element
 from ._errors import InputError
-from ._path import _check_array, _checked_stopping, _dopri_integrate, _path_cosine
+from ._ode import _check_array, _checked_stopping, _dopri_integrate, _path_cosine
 
 __all__ = [
     "bohr_variance",
@@ -210,7 +210,7 @@ def propagate(stopping_fn: Callable, rate_fn: Callable, energy_keV, variance_keV
 
         dE/dx = -S(E)/1000,     dVar/dx = -2 (dS/dE)/1000 * Var + rate(E),
 
-    with the adaptive Dormand-Prince 5(4) integrator of :mod:`forward._path`.  dS/dE is a
+    with the adaptive Dormand-Prince 5(4) integrator of :mod:`forward._ode`.  dS/dE is a
     central finite difference of ``stopping_fn`` with relative step 1e-4 (see
     ``_DERIVATIVE_REL_STEP``).
 
