@@ -49,6 +49,7 @@ from ._errors import InputError
 
 __all__ = [
     "HELIUM_COEFFICIENT_FILE",
+    "STOPPING_SLOPE_REFERENCE_KEV",
     "VALIDATED_MAX_KEV",
     "StoppingRangeWarning",
     "StoppingTable",
@@ -71,6 +72,11 @@ HELIUM_COEFFICIENT_FILE = "helium_ziegler1977_icru49.csv"
 #: most elements agree within a few per cent; above it the fitted form and the database part
 #: ways (e.g. Be and Xe by 8-17 % at 4-6 MeV).  RBS with 1-3 MeV helium stays below it.
 VALIDATED_MAX_KEV = 3000.0
+
+#: Reference energy (keV) of a stopping slope: a slope ``b`` multiplies an element's stopping by
+#: ``(E / STOPPING_SLOPE_REFERENCE_KEV)**b``, leaving it unchanged at this energy (the middle of
+#: the energies a 1-3 MeV helium beam spends its path at).
+STOPPING_SLOPE_REFERENCE_KEV = 1000.0
 
 #: Energy (keV) below which the electronic stopping is scaled with sqrt(E).
 _LOW_ENERGY_KEV = 1.0
