@@ -4,8 +4,9 @@
 ``"O[18]"`` for a layer whose isotopes the run file overrides), the fixed slice grid, and the
 per-element and per-isotope tables on one uniform energy grid; then
 :meth:`ForwardModel.expected_counts` evaluates the kernel of :mod:`forward._kernel` on a
-``(n_slices, n_species)`` table of atom fractions with the calibration, resolution, fluence and
-stopping scales of a :class:`Nuisance`.
+``(n_slices, n_species)`` table of atom fractions (on the nominal grid, or on slice widths the
+caller gives) with the calibration, resolution, fluence, stopping scale and slope and
+straggling scale of a :class:`Nuisance`.
 
 Tables
 ------
@@ -15,7 +16,8 @@ energy in steps of ``table_step_keV`` (default 2 keV):
 * per element: stopping ``S`` (keV per 1e15 atoms/cm2; electronic + nuclear, from
   :class:`forward.StoppingModel`), ``dS/dE`` and ``d2S/dE2`` (central differences of the
   stopping function, not of the table), the straggling rate ``W`` of
-  :func:`forward._straggling.straggling_rate` and ``dW/dE``;
+  :func:`forward._straggling.straggling_rate` with the run's law (``[physics] straggling``)
+  and ``dW/dE``; carbon uses the run's ``[physics] carbon`` coefficients;
 * per isotope: ``E^3 sigma(E)`` (keV^3 mb/sr), with ``sigma`` from
   :func:`forward.rutherford_cross_section` times the run's ratio-to-Rutherford table if any.
   With Rutherford's ``1/E^2`` taken out, the screening correction ``1 - c/E + ...`` makes
@@ -37,7 +39,20 @@ grid runs down to where a particle scattered by the heaviest isotope would be de
 lowest characteristic (well below the lowest channel; the substrate signal trails down to low
 energy, common practice), plus 20 % in depth so that smaller stopping scales are still covered;
 a sample without substrate ends at its last layer.  Either is extended to ``depth_limit_1e15``
-if that is deeper (rows below a sample without substrate are vacuum).
+if that is deeper (rows below a sample without substrate are vacuum).  ``SliceGrid.layer``
+records the layer of each slice.
+
+Grids that follow the sample
+----------------------------
+A fixed grid makes counts ripple when a layer boundary moves through a slice.
+:meth:`ForwardModel.sample_grid` instead stretches each finite layer's nominal slices by
+``t_k / t0_k`` and shifts the substrate (or vacuum) slices below, so layer boundaries stay slice
+edges and edges move continuously with the areal densities; the substrate is extended when
+thinner films or lower stopping need it deeper (see that method).  Pass its widths with a
+fraction table of the same rows to :meth:`ForwardModel.expected_counts` (``widths_1e15=``).
+A layer thicker than nominal gets proportionally wider slices (``slice_fraction`` holds for the
+run file's sample); build the model from a run file near the thickest sample of interest, or
+lower ``slice_fraction``, if that matters.
 
 Pile-up
 -------
@@ -64,7 +79,7 @@ from ._kernel import (BROADENING_HALF_WIDTH, ROWS_PER_ISOTOPE, ROWS_PER_SPECIES,
                       KernelInputs, broadening_table, spectrum_kernel)
 from ._kinematics import kinematic_factor
 from ._stopping import STOPPING_SLOPE_REFERENCE_KEV, StoppingModel
-from ._straggling import straggling_rate
+from ._straggling import STRAGGLING_LAWS, straggling_rate
 
 __all__ = ["ForwardModel", "Nuisance", "SliceGrid", "SpeciesInfo", "TABLE_FLOOR_KEV",
            "FWHM_TO_SIGMA"]
@@ -356,7 +371,9 @@ class ForwardModel:
         n_tab = int(math.ceil((e_top - TABLE_FLOOR_KEV) / self.table_step_keV)) + 1
         self.table_energy_keV = TABLE_FLOOR_KEV + self.table_step_keV * np.arange(n_tab)
         e = self.table_energy_keV
-        stop = StoppingModel(run.beam.species, tables=dict(phys.stopping_tables))
+        stop = StoppingModel(run.beam.species, tables=dict(phys.stopping_tables),
+                             carbon=phys.carbon)
+        correction = STRAGGLING_LAWS[phys.straggling]
         self._stopping_model = stop
         n_el = len(self.elements)
         S = np.zeros((n_el, n_tab))
@@ -375,7 +392,8 @@ class ForwardModel:
                 S[i], dS[i] = s_mid, (s_hi - s_lo) / (2 * h)
                 d2S[i] = (s_hi - 2 * s_mid + s_lo) / (h * h)
                 if self.straggling:
-                    r = lambda x: np.asarray(straggling_rate(self._z1, self._m1, {sym: 1.0}, x))  # noqa: E731
+                    r = lambda x: np.asarray(straggling_rate(  # noqa: E731
+                        self._z1, self._m1, {sym: 1.0}, x, correction=correction))
                     W[i], dW[i] = r(e), (r(e + h) - r(e - h)) / (2 * h)
         self._S, self._dS, self._d2S, self._W, self._dW = S, dS, d2S, W, dW
 

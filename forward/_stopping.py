@@ -14,6 +14,9 @@ Electronic stopping of 4He
         S      = S_low S_high / (S_low + S_high)
 
     Below 1 keV the 1 keV value is scaled with sqrt(E) (stopping proportional to velocity).
+    Carbon: the coefficient file's row is graphite; ICRU Report 49 gives amorphous carbon its
+    own coefficients (``data/stopping/helium_icru49_phases.csv``), chosen with
+    ``carbon="amorphous"``.
 
 Electronic stopping of 3He
     The 4He value at the same velocity, i.e. at E m(4He)/m(3He) (stopping of a bare or
@@ -48,7 +51,9 @@ from ._elements import element, ion as _ion, parse_formula
 from ._errors import InputError
 
 __all__ = [
+    "CARBON_PHASES",
     "HELIUM_COEFFICIENT_FILE",
+    "HELIUM_PHASE_FILE",
     "STOPPING_SLOPE_REFERENCE_KEV",
     "VALIDATED_MAX_KEV",
     "StoppingRangeWarning",
@@ -66,6 +71,10 @@ __all__ = [
 
 #: File name of the 4He electronic stopping coefficients (Ziegler 1977, ICRU 49 revisions).
 HELIUM_COEFFICIENT_FILE = "helium_ziegler1977_icru49.csv"
+#: File name of the 4He coefficients of other phases of an element (ICRU 49 amorphous carbon).
+HELIUM_PHASE_FILE = "helium_icru49_phases.csv"
+#: Phases of carbon the helium stopping knows; the first is the default (the main file's row).
+CARBON_PHASES = ("graphite", "amorphous")
 
 #: Highest 4He energy (keV) up to which the electronic stopping has been compared with NIST
 #: ASTAR element by element (tests/test_stopping.py, docs/stopping_vs_astar.md).  Up to here
@@ -133,6 +142,26 @@ def _helium_coefficients() -> np.ndarray:
     return table
 
 
+@lru_cache(maxsize=1)
+def _helium_phase_coefficients() -> dict:
+    """{(Z, phase): (a0..a4)} of the phase file."""
+    path = find_stopping_data(HELIUM_PHASE_FILE)
+    out = {}
+    with path.open(newline="") as fh:
+        rows = csv.DictReader(line for line in fh if not line.lstrip().startswith("#"))
+        for row in rows:
+            out[(int(row["Z"]), row["phase"])] = tuple(float(row[k])
+                                                       for k in ("a0", "a1", "a2", "a3", "a4"))
+    return out
+
+
+def _check_carbon(carbon) -> str:
+    if carbon not in CARBON_PHASES:
+        raise InputError(f"unknown carbon phase {carbon!r}; allowed: "
+                         + ", ".join(repr(c) for c in CARBON_PHASES))
+    return carbon
+
+
 # --------------------------------------------------------------------------------------------
 # input checks
 # --------------------------------------------------------------------------------------------
@@ -174,7 +203,7 @@ def _target(symbol: str) -> tuple[int, float]:
 # electronic stopping
 # --------------------------------------------------------------------------------------------
 
-def helium_electronic_stopping(z2: int, energy_keV):
+def helium_electronic_stopping(z2: int, energy_keV, *, carbon: str = "graphite"):
     """Electronic stopping cross-section of 4He in element ``z2``.
 
     Ziegler (1977) five-coefficient form with the ICRU Report 49 revisions (see module notes).
@@ -185,6 +214,9 @@ def helium_electronic_stopping(z2: int, energy_keV):
         Atomic number of the target element, 1-92.
     energy_keV : float or array_like
         4He kinetic energy in keV, >= 0.
+    carbon : {"graphite", "amorphous"}, optional
+        Coefficients used for carbon (z2 = 6): graphite (default) or ICRU Report 49's
+        amorphous carbon.  Ignored for other elements.
 
     Returns
     -------
@@ -193,7 +225,10 @@ def helium_electronic_stopping(z2: int, energy_keV):
     """
     z2 = _check_z(z2)
     e = _energies(energy_keV)
-    a0, a1, a2, a3, a4 = _helium_coefficients()[z2]
+    if z2 == 6 and _check_carbon(carbon) != CARBON_PHASES[0]:
+        a0, a1, a2, a3, a4 = _helium_phase_coefficients()[(6, carbon)]
+    else:
+        a0, a1, a2, a3, a4 = _helium_coefficients()[z2]
     e_fit = np.maximum(e, _LOW_ENERGY_KEV)
     t_MeV = e_fit / 1000.0
     s_low = a0 * e_fit ** a1
@@ -444,6 +479,12 @@ class StoppingModel:
         Element symbol -> factor (> 0) multiplying that element's stopping, tabulated or not.
     nuclear : bool, default True
         Include nuclear stopping for elements without a user table.
+    carbon : {"graphite", "amorphous"}, default "graphite"
+        Which helium coefficients carbon uses (see :func:`helium_electronic_stopping`).
+    slope : dict[str, float], optional
+        Element symbol -> exponent ``b``: that element's stopping (tabulated or not) is also
+        multiplied by ``(E / STOPPING_SLOPE_REFERENCE_KEV)**b`` (the shape nuisance of the
+        spectrum model, :class:`forward.Nuisance`; here for checks and studies).
 
     Notes
     -----
@@ -453,7 +494,8 @@ class StoppingModel:
     """
 
     def __init__(self, ion: str = "4He", tables: Mapping | None = None,
-                 scale: Mapping[str, float] | None = None, nuclear: bool = True):
+                 scale: Mapping[str, float] | None = None, nuclear: bool = True,
+                 carbon: str = "graphite", slope: Mapping[str, float] | None = None):
         beam = _ion(ion)  # raises InputError for protons and unknown ions
         self.ion = ion
         self.z1 = beam.z
@@ -461,6 +503,7 @@ class StoppingModel:
         # The 4He energy with the same velocity as this ion at energy E is E * m(4He) / m.
         self._to_4he = _ion("4He").mass_u / beam.mass_u
         self.include_nuclear = bool(nuclear)
+        self.carbon = _check_carbon(carbon)
         self.tables: dict[str, StoppingTable] = {}
         for symbol, table in (tables or {}).items():
             _target(symbol)
@@ -478,13 +521,29 @@ class StoppingModel:
                 raise InputError(f"stopping scale for {symbol} is {factor!r}; "
                                  "it must be a finite number > 0 (1 = unchanged)")
             self.scale[symbol] = value
+        self.slope: dict[str, float] = {}
+        for symbol, b in (slope or {}).items():
+            _target(symbol)
+            try:
+                value = float(b)
+            except (TypeError, ValueError):
+                value = math.nan
+            if not math.isfinite(value):
+                raise InputError(f"stopping slope for {symbol} is {b!r}; it must be a finite "
+                                 "number (0 = unchanged)")
+            self.slope[symbol] = value
 
     def __repr__(self) -> str:
         return (f"StoppingModel(ion={self.ion!r}, tables={sorted(self.tables)}, "
-                f"scale={self.scale}, nuclear={self.include_nuclear})")
+                f"scale={self.scale}, nuclear={self.include_nuclear}, carbon={self.carbon!r}, "
+                f"slope={self.slope})")
 
-    def _factor(self, symbol: str) -> float:
-        return self.scale.get(symbol, 1.0)
+    def _factor(self, symbol: str, energy_keV=None):
+        f = self.scale.get(symbol, 1.0)
+        b = self.slope.get(symbol, 0.0)
+        if b and energy_keV is not None:
+            return f * (np.asarray(energy_keV, dtype=float) / STOPPING_SLOPE_REFERENCE_KEV) ** b
+        return f
 
     def electronic(self, symbol: str, energy_keV):
         """Electronic stopping per atom of ``symbol`` (or its user table), after scaling.
@@ -506,8 +565,8 @@ class StoppingModel:
             s = np.asarray(self.tables[symbol](energy_keV))
         else:
             e = _energies(energy_keV)
-            s = np.asarray(helium_electronic_stopping(z2, e * self._to_4he))
-        s = s * self._factor(symbol)
+            s = np.asarray(helium_electronic_stopping(z2, e * self._to_4he, carbon=self.carbon))
+        s = s * self._factor(symbol, energy_keV)
         return s if s.ndim else float(s)
 
     def nuclear(self, symbol: str, energy_keV):
@@ -532,7 +591,7 @@ class StoppingModel:
         if symbol in self.tables or not self.include_nuclear:
             s = np.zeros_like(e)
         else:
-            s = np.asarray(nuclear_stopping(self.z1, self.m1_u, z2, m2, e)) * self._factor(symbol)
+            s = np.asarray(nuclear_stopping(self.z1, self.m1_u, z2, m2, e)) * self._factor(symbol, e)
         return s if s.ndim else float(s)
 
     def element(self, symbol: str, energy_keV):
@@ -594,7 +653,8 @@ class StoppingModel:
 
 
 def stopping(ion: str, target: str, energy_keV, *, nuclear: bool = True,
-             tables: Mapping | None = None, scale: Mapping[str, float] | None = None):
+             tables: Mapping | None = None, scale: Mapping[str, float] | None = None,
+             carbon: str = "graphite"):
     """Stopping cross-section of a helium ion in an element or a compound, per target atom.
 
     Parameters
@@ -609,13 +669,15 @@ def stopping(ion: str, target: str, energy_keV, *, nuclear: bool = True,
         Include nuclear stopping.
     tables, scale : dict, optional
         As for :class:`StoppingModel`.
+    carbon : {"graphite", "amorphous"}, default "graphite"
+        Which helium coefficients carbon uses.
 
     Returns
     -------
     float or numpy.ndarray
         eV/(1e15 atoms/cm2) per atom of the target (Bragg's rule for compounds).
     """
-    model = StoppingModel(ion, tables=tables, scale=scale, nuclear=nuclear)
+    model = StoppingModel(ion, tables=tables, scale=scale, nuclear=nuclear, carbon=carbon)
     try:
         _target(target)
         fractions = {target: 1.0}
