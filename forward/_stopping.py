@@ -54,7 +54,10 @@ __all__ = [
     "CARBON_PHASES",
     "HELIUM_COEFFICIENT_FILE",
     "HELIUM_PHASE_FILE",
+    "HELIUM_UNCERTAINTY_FILE",
     "STOPPING_SLOPE_REFERENCE_KEV",
+    "UNCERTAINTY_BAND_KEV",
+    "stopping_uncertainty",
     "VALIDATED_MAX_KEV",
     "StoppingRangeWarning",
     "StoppingTable",
@@ -710,3 +713,106 @@ def check_stopping_range(energy_keV, ion: str = "4He") -> bool:
                       "stopping errors of several per cent", StoppingRangeWarning, stacklevel=2)
         return False
     return True
+
+
+# --------------------------------------------------------------------------------------------
+# how well the stopping is known: prior widths for the stopping nuisances
+# --------------------------------------------------------------------------------------------
+
+#: File of recommended prior widths per element (written by benchmarks/stopping_vs_astar.py).
+HELIUM_UNCERTAINTY_FILE = "helium_stopping_uncertainty.csv"
+
+#: Energy band (keV) over which the widths were measured: the energies 1-3 MeV helium spends its
+#: path at in a backscattering measurement, down to the low-energy end of typical spectra.
+UNCERTAINTY_BAND_KEV = (200.0, 3000.0)
+
+#: Elements whose ICRU Report 49 helium stopping leaves the coefficient form above about 1 MeV
+#: (Bethe theory there): Be, C, N, O and Z >= 55 (ICRU Report 49, 1993).
+_FORM_DEPARTS_Z = frozenset({4, 6, 7, 8})
+
+
+def _coefficient_form_departs(z2: int) -> bool:
+    return z2 >= 55 or z2 in _FORM_DEPARTS_Z
+
+
+@lru_cache(maxsize=1)
+def _uncertainty_rows() -> tuple[dict, ...]:
+    path = find_stopping_data(HELIUM_UNCERTAINTY_FILE)
+    with path.open(newline="") as fh:
+        rows = csv.DictReader(line for line in fh if not line.lstrip().startswith("#"))
+        out = []
+        for row in rows:
+            row = dict(row)
+            row["Z"] = int(row["Z"])
+            row["scale_sd"] = float(row["scale_sd"])
+            row["slope_sd"] = float(row["slope_sd"])
+            out.append(row)
+    return tuple(out)
+
+
+def stopping_uncertainty(symbol: str, ion: str = "4He", *, carbon: str = "graphite",
+                         oxide: bool = False) -> tuple[float, float]:
+    """Recommended prior widths of an element's stopping scale and stopping slope.
+
+    The spectrum model multiplies an element's stopping by
+    ``stopping_scale * (E / 1000 keV)**stopping_slope`` (:class:`forward.Nuisance`).  These are
+    standard deviations for priors centred on 1 and 0, set from the measured spread of our
+    helium electronic stopping against NIST ASTAR (M. J. Berger et al., NIST Standard Reference
+    Database 124, implementing ICRU Report 49), ``benchmarks/stopping_vs_astar.py``, and stored
+    in ``data/stopping/helium_stopping_uncertainty.csv``:
+
+    * for each element ASTAR tabulates, ``ln(S_ASTAR / S_ours)`` over 200-3000 keV is fitted
+      with a line ``a + b ln(E / 1000 keV)`` (residual rms ``r``);
+      ``scale_sd = sqrt(f_s^2 + a^2 + r^2)`` and ``slope_sd = sqrt(f_b^2 + b^2)``, with floors
+      ``f_s``, ``f_b`` the root mean square of ``sqrt(a^2 + r^2)`` and of ``b`` over all those
+      elements (agreement with one evaluation does not make an element better known than
+      evaluations typically differ).  With these widths ASTAR lies within 2 standard
+      deviations of the prior at every energy of the band, for every element (tested);
+    * an element ASTAR does not tabulate gets the root mean square of the widths of the
+      measured elements of its class: those whose ICRU 49 stopping leaves the coefficient form
+      above about 1 MeV (Be, C, N, O and Z >= 55; wider) and the others;
+    * ``oxide=True`` (oxygen only) gives the widths for oxygen bound in a solid oxide, from
+      ASTAR's SiO2 and Al2O3 against Bragg's rule with our elements, the whole difference laid
+      on oxygen: ASTAR's oxides stop 15-20 % less than Bragg's rule below 1 MeV (chemical and
+      phase effects), so these widths are several times larger.
+
+    Widths are for the built-in stopping; an element whose stopping comes from a user table is
+    as well known as that table.
+
+    Parameters
+    ----------
+    symbol : str
+        Element symbol.
+    ion : {"4He", "3He"}, optional
+        Beam ion.  3He gets the 4He widths (its stopping is the 4He value at equal velocity;
+        the slope is the same and the scale moves by ``b ln(4/3)``, well inside the floor).
+    carbon : {"graphite", "amorphous"}, optional
+        For carbon: which coefficients the run uses (``[physics] carbon``).
+    oxide : bool, optional
+        Oxygen bound in a solid oxide instead of oxygen alone.
+
+    Returns
+    -------
+    scale_sd, slope_sd : float
+        Standard deviations of ``stopping_scale`` (around 1) and ``stopping_slope`` (around 0).
+    """
+    _ion(ion)  # protons and unknown ions raise InputError
+    z2, _ = _target(symbol)
+    phase = _check_carbon(carbon) if z2 == 6 else None
+    rows = _uncertainty_rows()
+    if oxide:
+        if symbol != "O":
+            raise InputError(f"oxide widths exist for oxygen only, not {symbol!r}",
+                             where="stopping_uncertainty: oxide")
+        row = next(r for r in rows if r["symbol"] == "O" and r["phase"] == "oxide")
+        return row["scale_sd"], row["slope_sd"]
+    for r in rows:
+        if r["symbol"] == symbol and r["phase"] != "oxide" and (phase is None
+                                                                 or r["phase"] == phase):
+            return r["scale_sd"], r["slope_sd"]
+    # not tabulated by ASTAR: the root mean square of its class (default phases only)
+    same = [r for r in rows if r["phase"] not in ("oxide", "amorphous")
+            and _coefficient_form_departs(r["Z"]) == _coefficient_form_departs(z2)]
+    scale = math.sqrt(sum(r["scale_sd"] ** 2 for r in same) / len(same))
+    slope = math.sqrt(sum(r["slope_sd"] ** 2 for r in same) / len(same))
+    return scale, slope
