@@ -570,12 +570,12 @@ class ForwardModel:
         lay = np.append(g.layer, g.layer[-1])
         film = (lay >= 0) & (lay < n_fin)
         self._edge_film = np.where(film, lay, -1)
-        rel = np.zeros(lay.size)
+        # depth of each film edge below the top of its layer
+        within = np.zeros(lay.size)
         for k in range(n_fin):
             on = lay == k
-            rel[on] = (g.edges_1e15[on] - tops0[k]) / t0[k]
-        self._edge_rel = rel
-        self._edge_below = g.edges_1e15 - tops0[-1]
+            within[on] = g.edges_1e15[on] - tops0[k]
+        self._edge_within = within
         self._last_substrate_width = 1.0
         self._rho = 1.0
         if self._substrate:
@@ -690,12 +690,15 @@ class ForwardModel:
                              where="sample_grid: areal_density_1e15")
         tops = np.concatenate(([0.0], np.cumsum(t)))
         total = float(tops[-1])
+        shift = tops - self._tops0
         film = self._edge_film >= 0
         k = np.where(film, self._edge_film, 0)
+        # written as changes of the nominal edges, so that t = t0 gives them exactly
+        edges = self.grid.edges_1e15 + shift[-1]
         if t.size:
-            edges = np.where(film, tops[k] + self._edge_rel * t[k], self._edge_below + total)
-        else:
-            edges = self._edge_below.copy()
+            stretch = t / self._t0 - 1.0
+            edges = np.where(film, self.grid.edges_1e15 + shift[k]
+                             + self._edge_within * stretch[k], edges)
         layer = self.grid.layer
         if self._substrate:
             nu = self._check_nuisance(nuisance)
