@@ -699,6 +699,8 @@ class ForwardModel:
             stretch = t / self._t0 - 1.0
             edges = np.where(film, self.grid.edges_1e15 + shift[k]
                              + self._edge_within * stretch[k], edges)
+            # a layer squeezed to zero may leave rounding of -1e-14 in its widths
+            edges = np.maximum.accumulate(edges)
         layer = self.grid.layer
         if self._substrate:
             nu = self._check_nuisance(nuisance)

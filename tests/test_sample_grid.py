@@ -112,9 +112,17 @@ def test_sample_grid_scales_each_layer_and_shifts_the_substrate():
     # layer boundaries at the new depths, exactly as edges
     first_of = [int(np.argmax(g.layer == k)) for k in (1, 2)]
     np.testing.assert_allclose([g.edges_1e15[i] for i in first_of], [310.0, 590.0], rtol=1e-15)
-    # a layer of zero areal density has slices of zero width and contributes nothing
+    # a layer of zero areal density has slices of zero width (never negative ones, whatever
+    # the rounding) and contributes nothing
     z = model.sample_grid([0.0, 280.0])
     assert np.all(z.widths_1e15[z.layer == 0] == 0.0)
+    for t in ([123.456789, 0.0], [0.1, 0.0], [0.0, 0.0]):
+        z = model.sample_grid(t)
+        assert z.widths_1e15.min() >= 0.0
+        assert np.all(z.widths_1e15[z.layer == 1] < 1e-12)
+        counts = model.expected_counts(model.layer_fractions(z), widths_1e15=z.widths_1e15,
+                                       per_species=True)
+        assert counts[model.species.index("Al")].max() < 1e-9
 
 
 def test_edges_move_continuously_with_the_areal_densities():
