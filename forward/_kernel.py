@@ -288,17 +288,20 @@ def _sloped_tables(tab_e0, tab_step, S, dS, d2S, slope, e_ref):
     S2 = S.copy()
     dS2 = dS.copy()
     d2S2 = d2S.copy()
-    for el in range(n_el):
-        b = slope[el]
-        if b == 0.0:
-            continue
-        for i in range(n):
-            e = tab_e0 + i * tab_step
-            f = (e / e_ref) ** b
-            u = b / e
+    for i in range(n):
+        e = tab_e0 + i * tab_step
+        log_ratio = math.log(e / e_ref)   # one logarithm per energy, shared by the elements
+        inv_e = 1.0 / e
+        for el in range(n_el):
+            b = slope[el]
+            if b == 0.0:
+                continue
+            f = math.exp(b * log_ratio)
+            u = b * inv_e
             S2[el, i] = S[el, i] * f
             dS2[el, i] = (dS[el, i] + S[el, i] * u) * f
-            d2S2[el, i] = (d2S[el, i] + 2.0 * dS[el, i] * u + S[el, i] * u * (b - 1.0) / e) * f
+            d2S2[el, i] = (d2S[el, i] + 2.0 * dS[el, i] * u
+                           + S[el, i] * u * (b - 1.0) * inv_e) * f
     return S2, dS2, d2S2
 
 
