@@ -8,6 +8,11 @@ FWHM 19 keV, 1024 channels of 1.6 keV.  Measured:
   once (import, tables, compile, first call);
 * ``cached_start_s``: the same in a fresh interpreter with the cache warm;
 * ``hot_call_ms_*``: ``model.expected_counts`` on one core, median and 10/90 percentiles;
+* ``hot_call_tilted_ms_median``: the same with a straggling scale and non-zero stopping slopes
+  for every element (the kernel rescales its stopping tables once per call);
+* ``sample_grid_call_ms_median``: ``model.sample_grid(t)``, ``model.layer_fractions(grid)`` and
+  ``model.expected_counts(..., widths_1e15=grid.widths_1e15)`` for areal densities other than
+  the run file's (the inversion's hot path with grids that follow the sample);
 * ``numpy_reference_ratio``: the plain numpy reference (tests/reference_model.py) over the
   kernel, same arguments, same run;
 * ``peak_rss_mb`` and ``rss_growth_mb``: resident memory over many hot calls (flat memory means
@@ -133,16 +138,32 @@ def measure(calls: int) -> dict:
         model.expected_counts(fractions)
         times.append(time.perf_counter() - t)
     times = np.array(times) * 1e3
-    args = model.kernel_arguments(fractions)
+    tilted = model.default_nuisance()
+    tilted.straggling_scale = 1.3
+    tilted.stopping_slope = np.linspace(-0.05, 0.05, len(model.elements))
+    model.expected_counts(fractions, tilted)
+    tilted_times = []
+    for _ in range(2000):
+        t = time.perf_counter()
+        model.expected_counts(fractions, tilted)
+        tilted_times.append(time.perf_counter() - t)
+    thickness = [310.0, 585.0]
+    grid_times = []
+    for i in range(2000):
+        t = time.perf_counter()
+        grid = model.sample_grid([thickness[0] + 0.01 * (i % 7), thickness[1]])
+        model.expected_counts(model.layer_fractions(grid), widths_1e15=grid.widths_1e15)
+        grid_times.append(time.perf_counter() - t)
+    inputs = model.kernel_inputs(fractions)
     kernel_times = []
     for _ in range(500):
         t = time.perf_counter()
-        spectrum_kernel(*args)
+        spectrum_kernel(*inputs)
         kernel_times.append(time.perf_counter() - t)
     ref_times = []
     for _ in range(5):
         t = time.perf_counter()
-        spectrum_kernel_reference(*args)
+        spectrum_kernel_reference(*inputs)
         ref_times.append(time.perf_counter() - t)
     kernel_ms = float(np.median(kernel_times) * 1e3)
     ref_ms = float(np.median(ref_times) * 1e3)
@@ -173,6 +194,8 @@ def measure(calls: int) -> dict:
         "hot_call_ms_p10": round(float(np.percentile(times, 10)), 4),
         "hot_call_ms_p90": round(float(np.percentile(times, 90)), 4),
         "kernel_only_ms_median": round(kernel_ms, 4),
+        "hot_call_tilted_ms_median": round(float(np.median(tilted_times) * 1e3), 4),
+        "sample_grid_call_ms_median": round(float(np.median(grid_times) * 1e3), 4),
         "numpy_reference_ms": round(ref_ms, 2),
         "numpy_reference_ratio": round(ref_ms / kernel_ms, 1),
         "rss_calls": calls,

@@ -42,6 +42,8 @@ _EXPORTS = {
     "StoppingTable": "._stopping",
     "check_stopping_range": "._stopping",
     "VALIDATED_MAX_KEV": "._stopping",
+    "STOPPING_SLOPE_REFERENCE_KEV": "._stopping",
+    "stopping_uncertainty": "._stopping",
     # paths and straggling
     "energy_after_path": "._path",
     "path_to_energy": "._path",
@@ -64,6 +66,7 @@ _EXPORTS = {
     "ForwardModel": "._model",
     "Nuisance": "._model",
     "SliceGrid": "._model",
+    "KernelInputs": "._kernel",
 }
 
 __all__ = sorted(_EXPORTS)

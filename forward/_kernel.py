@@ -43,17 +43,39 @@ thing and is checked against this one on every test run):
 5. **Stop.**  The loop ends when no isotope can be detected above the lowest characteristic
    (placed well below the lowest channel), when the ion's energy falls to the table's floor, or
    at the last slice; open boxes are closed at that edge.
+
+Nuisances that change the physics without new tables
+----------------------------------------------------
+* ``stopping_scale`` (one factor per element) multiplies ``S``, ``S'`` and ``S''`` inside the
+  Bragg sum.
+* ``straggling_scale`` (one number) multiplies every straggling rate ``W`` and ``W'``, inward and
+  outward; the straggling variances are linear in it.
+* ``stopping_slope`` (one exponent ``b`` per element) multiplies an element's stopping by
+  ``(E / E_ref)^b`` with ``E_ref = slope_reference_keV``.  When any ``b`` is non-zero the kernel
+  first rescales that element's tables once (``S f``, ``(S' + S b/E) f`` and
+  ``(S'' + 2 S' b/E + S b (b - 1)/E^2) f`` with ``f = (E/E_ref)^b``: the analytic derivatives of
+  the product), so the slice loop runs at the same cost.
+
+Inputs
+------
+:class:`KernelInputs` names the arguments of :func:`spectrum_kernel` in order; the spectrum
+model builds one per call and the kernel is called as ``spectrum_kernel(*inputs)``.
 """
 
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 from numba import njit
 
 __all__ = [
     "BROADENING_HALF_WIDTH",
+    "KernelInputs",
+    "ROWS_TOTAL",
+    "ROWS_PER_SPECIES",
+    "ROWS_PER_ISOTOPE",
     "broadening_table",
     "spectrum_kernel",
     "step_integral_table_eval",
@@ -61,6 +83,54 @@ __all__ = [
 
 #: The Gaussian of each step is truncated at this many standard deviations (tail < 1e-15).
 BROADENING_HALF_WIDTH = 8.0
+
+#: Values of ``rows_mode``: one spectrum in all, one per species, one per isotope.
+ROWS_TOTAL, ROWS_PER_SPECIES, ROWS_PER_ISOTOPE = 0, 1, 2
+
+
+class KernelInputs(NamedTuple):
+    """The arguments of :func:`spectrum_kernel`, named and in order.
+
+    Built by :meth:`forward.ForwardModel.kernel_inputs`; call the kernel with
+    ``spectrum_kernel(*inputs)``.  Every field is a plain number or numpy array; see
+    :func:`spectrum_kernel` for units and shapes.  The slice table is ``widths_1e15`` (one areal
+    density per slice, from the surface down) with ``fractions`` (one row per slice, one column
+    per species); it may have any number of rows.
+    """
+
+    widths_1e15: np.ndarray
+    fractions: np.ndarray
+    species_element: np.ndarray
+    n_elements: int
+    tab_e0_keV: float
+    tab_step_keV: float
+    S: np.ndarray
+    dS: np.ndarray
+    d2S: np.ndarray
+    W: np.ndarray
+    dW: np.ndarray
+    stopping_scale: np.ndarray
+    stopping_slope: np.ndarray
+    slope_reference_keV: float
+    straggling_scale: float
+    iso_species: np.ndarray
+    iso_k: np.ndarray
+    iso_weight: np.ndarray
+    e3sigma: np.ndarray
+    energy_keV: float
+    inv_cos_in: float
+    inv_cos_out: float
+    yield_factor: float
+    edges_keV: np.ndarray
+    sigma_det_keV: float
+    particle_step_keV: float
+    floor_keV: float
+    ftab: np.ndarray
+    fder: np.ndarray
+    u_max: float
+    du: float
+    rows_mode: int
+    record: np.ndarray
 
 
 def broadening_table(step_u: float = 1.0 / 64.0, half_width: float = BROADENING_HALF_WIDTH):
@@ -175,8 +245,9 @@ def _add_step(out, plateau, row, edges, e, s, amp, ftab, fder, u_max, inv_du, du
 
 
 @njit(cache=True, error_model="numpy")
-def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, W, dW, scale):
-    """Bragg-rule mixture at one energy: S, S', S'' (keV per 1e15, scaled) and W, W'."""
+def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, W, dW, scale,
+         w_scale):
+    """Bragg-rule mixture at one energy: S, S', S'' (keV per 1e15, scaled) and W, W' (scaled)."""
     pos = (energy - tab_e0) * tab_inv_step
     if pos < 0.0:
         pos = 0.0
@@ -207,12 +278,37 @@ def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, 
         s2 += cs * (d2S[el, i] + t * (d2S[el, i + 1] - d2S[el, i]))
         w0 += c * (W[el, i] + t * (W[el, i + 1] - W[el, i]))
         w1 += c * (dW[el, i] + t * (dW[el, i + 1] - dW[el, i]))
-    return s0, s1, s2, w0, w1
+    return s0, s1, s2, w0 * w_scale, w1 * w_scale
+
+
+@njit(cache=True, error_model="numpy")
+def _sloped_tables(tab_e0, tab_step, S, dS, d2S, slope, e_ref):
+    """``S``, ``S'``, ``S''`` of every element times ``(E/e_ref)^slope`` (analytic derivatives)."""
+    n_el, n = S.shape
+    S2 = S.copy()
+    dS2 = dS.copy()
+    d2S2 = d2S.copy()
+    for i in range(n):
+        e = tab_e0 + i * tab_step
+        log_ratio = math.log(e / e_ref)   # one logarithm per energy, shared by the elements
+        inv_e = 1.0 / e
+        for el in range(n_el):
+            b = slope[el]
+            if b == 0.0:
+                continue
+            f = math.exp(b * log_ratio)
+            u = b * inv_e
+            S2[el, i] = S[el, i] * f
+            dS2[el, i] = (dS[el, i] + S[el, i] * u) * f
+            d2S2[el, i] = (d2S[el, i] + 2.0 * dS[el, i] * u
+                           + S[el, i] * u * (b - 1.0) * inv_e) * f
+    return S2, dS2, d2S2
 
 
 @njit(cache=True, error_model="numpy")
 def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
                     tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
+                    stopping_slope, slope_reference_keV, straggling_scale,
                     iso_species, iso_k, iso_weight, e3sigma,
                     energy_keV, inv_cos_in, inv_cos_out, yield_factor,
                     edges_keV, sigma_det_keV, particle_step_keV, floor_keV,
@@ -237,6 +333,12 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
         straggling).
     stopping_scale : (n_elements,) float64
         Factors multiplying each element's stopping.
+    stopping_slope : (n_elements,) float64
+        Exponents ``b``: each element's stopping is also multiplied by ``(E/E_ref)^b``.
+    slope_reference_keV : float
+        ``E_ref`` of the slopes, keV.
+    straggling_scale : float
+        Factor (>= 0) on every straggling rate, inward and outward.
     iso_species : (n_iso,) int64
         Species of each isotope.
     iso_k : (n_iso,) float64
@@ -274,6 +376,11 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
     -------
     (n_rows, n_channels) float64
     """
+    for el in range(stopping_slope.size):
+        if stopping_slope[el] != 0.0:
+            S, dS, d2S = _sloped_tables(tab_e0_keV, tab_step_keV, S, dS, d2S, stopping_slope,
+                                        slope_reference_keV)
+            break
     n_slices = widths_1e15.size
     n_species = fractions.shape[1]
     n_iso = iso_k.size
@@ -367,7 +474,8 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
         if not final and n_nz > 0:
             dx = widths_1e15[j] * inv_cos_in
             s0, s1, s2, w0, w1 = _mix(e_in, n_nz, nz_el, nz_c, tab_e0_keV, tab_inv_step,
-                                      tab_step_keV, S, dS, d2S, W, dW, stopping_scale)
+                                      tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
+                                      straggling_scale)
             e_next = e_in - dx * s0 + 0.5 * dx * dx * s0 * s1 \
                 - dx * dx * dx * s0 * (s0 * s2 + s1 * s1) / 6.0
             deriv = 1.0 - dx * s1 + 0.5 * dx * dx * (s1 * s1 + s0 * s2)
@@ -478,7 +586,8 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
             for p in range(p_hi + 1):
                 ep = p_e[p]
                 s0, s1, s2, w0, w1 = _mix(ep, n_nz, nz_el, nz_c, tab_e0_keV, tab_inv_step,
-                                          tab_step_keV, S, dS, d2S, W, dW, stopping_scale)
+                                          tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
+                                          straggling_scale)
                 gp = p_g[p]
                 p_u[p] += gp * gp * (dy * w0 + dy * dy * (0.5 * s0 * w1 - w0 * s1))
                 p_e[p] = ep + dy * s0 + 0.5 * dy * dy * s0 * s1 \

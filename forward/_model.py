@@ -4,8 +4,9 @@
 ``"O[18]"`` for a layer whose isotopes the run file overrides), the fixed slice grid, and the
 per-element and per-isotope tables on one uniform energy grid; then
 :meth:`ForwardModel.expected_counts` evaluates the kernel of :mod:`forward._kernel` on a
-``(n_slices, n_species)`` table of atom fractions with the calibration, resolution, fluence and
-stopping scales of a :class:`Nuisance`.
+``(n_slices, n_species)`` table of atom fractions (on the nominal grid, or on slice widths the
+caller gives) with the calibration, resolution, fluence, stopping scale and slope and
+straggling scale of a :class:`Nuisance`.
 
 Tables
 ------
@@ -15,7 +16,8 @@ energy in steps of ``table_step_keV`` (default 2 keV):
 * per element: stopping ``S`` (keV per 1e15 atoms/cm2; electronic + nuclear, from
   :class:`forward.StoppingModel`), ``dS/dE`` and ``d2S/dE2`` (central differences of the
   stopping function, not of the table), the straggling rate ``W`` of
-  :func:`forward._straggling.straggling_rate` and ``dW/dE``;
+  :func:`forward._straggling.straggling_rate` with the run's law (``[physics] straggling``)
+  and ``dW/dE``; carbon uses the run's ``[physics] carbon`` coefficients;
 * per isotope: ``E^3 sigma(E)`` (keV^3 mb/sr), with ``sigma`` from
   :func:`forward.rutherford_cross_section` times the run's ratio-to-Rutherford table if any.
   With Rutherford's ``1/E^2`` taken out, the screening correction ``1 - c/E + ...`` makes
@@ -37,7 +39,20 @@ grid runs down to where a particle scattered by the heaviest isotope would be de
 lowest characteristic (well below the lowest channel; the substrate signal trails down to low
 energy, common practice), plus 20 % in depth so that smaller stopping scales are still covered;
 a sample without substrate ends at its last layer.  Either is extended to ``depth_limit_1e15``
-if that is deeper (rows below a sample without substrate are vacuum).
+if that is deeper (rows below a sample without substrate are vacuum).  ``SliceGrid.layer``
+records the layer of each slice.
+
+Grids that follow the sample
+----------------------------
+A fixed grid makes counts ripple when a layer boundary moves through a slice.
+:meth:`ForwardModel.sample_grid` instead stretches each finite layer's nominal slices by
+``t_k / t0_k`` and shifts the substrate (or vacuum) slices below, so layer boundaries stay slice
+edges and edges move continuously with the areal densities; the substrate is extended when
+thinner films or lower stopping need it deeper (see that method).  Pass its widths with a
+fraction table of the same rows to :meth:`ForwardModel.expected_counts` (``widths_1e15=``).
+A layer thicker than nominal gets proportionally wider slices (``slice_fraction`` holds for the
+run file's sample); build the model from a run file near the thickest sample of interest, or
+lower ``slice_fraction``, if that matters.
 
 Pile-up
 -------
@@ -60,10 +75,11 @@ import numpy as np
 from ._cross_section import load_ratio_table, rutherford_cross_section
 from ._elements import element
 from ._errors import InputError
-from ._kernel import BROADENING_HALF_WIDTH, broadening_table, spectrum_kernel
+from ._kernel import (BROADENING_HALF_WIDTH, ROWS_PER_ISOTOPE, ROWS_PER_SPECIES, ROWS_TOTAL,
+                      KernelInputs, broadening_table, spectrum_kernel)
 from ._kinematics import kinematic_factor
-from ._stopping import StoppingModel
-from ._straggling import straggling_rate
+from ._stopping import STOPPING_SLOPE_REFERENCE_KEV, StoppingModel
+from ._straggling import STRAGGLING_LAWS, straggling_rate
 
 __all__ = ["ForwardModel", "Nuisance", "SliceGrid", "SpeciesInfo", "TABLE_FLOOR_KEV",
            "FWHM_TO_SIGMA"]
@@ -80,19 +96,28 @@ _MIN_SIZING_FWHM_KEV = 1.0
 
 @dataclass(frozen=True)
 class SliceGrid:
-    """The fixed depth grid: ``edges_1e15`` (n+1), ``centres_1e15`` and ``widths_1e15`` (n).
+    """A depth grid: ``edges_1e15`` (n+1), ``centres_1e15`` and ``widths_1e15`` (n).
 
-    Depths along the sample normal in 1e15 atoms/cm2, from the surface (0) down.
+    Depths along the sample normal in 1e15 atoms/cm2, from the surface (0) down.  ``layer``
+    (n ints, or None) is the run-file layer each slice belongs to, counted from 0 at the
+    surface; -1 marks vacuum below a sample without substrate.  Layer boundaries are always
+    slice edges on the grids :class:`ForwardModel` builds.
     """
 
     edges_1e15: np.ndarray
     centres_1e15: np.ndarray
     widths_1e15: np.ndarray
+    layer: np.ndarray | None = None
 
     @classmethod
-    def from_edges(cls, edges_1e15) -> "SliceGrid":
+    def from_edges(cls, edges_1e15, layer=None) -> "SliceGrid":
         edges = np.asarray(edges_1e15, dtype=float)
-        return cls(edges, 0.5 * (edges[1:] + edges[:-1]), np.diff(edges))
+        if layer is not None:
+            layer = np.asarray(layer, dtype=np.int64)
+            if layer.shape != (edges.size - 1,):
+                raise ValueError(f"layer has shape {layer.shape}; give one per slice "
+                                 f"({edges.size - 1})")
+        return cls(edges, 0.5 * (edges[1:] + edges[:-1]), np.diff(edges), layer)
 
     def __len__(self) -> int:
         return int(self.widths_1e15.size)
@@ -116,6 +141,27 @@ class Nuisance:
         Detector resolution (FWHM), keV; 0 switches the detector term off.
     stopping_scale : numpy.ndarray
         One factor per element of :attr:`ForwardModel.elements`, multiplying its stopping.
+    straggling_scale : float
+        One factor (>= 0) on every straggling variance rate, inward and outward (1 = the run's
+        straggling law as it is).  The straggling variances are proportional to it.
+    stopping_slope : numpy.ndarray
+        One exponent per element: its stopping is multiplied by
+        ``stopping_scale * (E / STOPPING_SLOPE_REFERENCE_KEV)**stopping_slope`` (reference
+        energy 1000 keV), so ``stopping_scale`` is the factor at 1000 keV and the slope tilts the
+        stopping curve about it.  An empty array means all zero (no tilt).
+
+    Notes
+    -----
+    :meth:`to_array` lays the values out as::
+
+        [fluence_scale, gain_keV, offset_keV, quadratic_keV, fwhm_keV,
+         stopping_scale[0], ..., stopping_scale[n-1],
+         straggling_scale,
+         stopping_slope[0], ..., stopping_slope[n-1]]
+
+    for ``n`` elements (``6 + 2 n`` values).  The first ``5 + n`` values are the layout used
+    before the straggling scale and the slopes existed, which :meth:`from_array` still reads
+    when told ``n_elements``.
     """
 
     fluence_scale: float = 1.0
@@ -124,29 +170,63 @@ class Nuisance:
     quadratic_keV: float = 0.0
     fwhm_keV: float = 15.0
     stopping_scale: np.ndarray = field(default_factory=lambda: np.ones(0))
+    straggling_scale: float = 1.0
+    stopping_slope: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
     def __post_init__(self):
         self.stopping_scale = np.atleast_1d(np.asarray(self.stopping_scale, dtype=float))
+        self.stopping_slope = np.atleast_1d(np.asarray(self.stopping_slope, dtype=float))
 
     def to_array(self) -> np.ndarray:
-        """``[fluence_scale, gain, offset, quadratic, fwhm, *stopping_scale]`` as float64."""
+        """The values as one float64 array (layout in the class notes)."""
+        n = self.stopping_scale.size
+        slope = self.stopping_slope if self.stopping_slope.size else np.zeros(n)
+        if slope.size != n:
+            raise ValueError(f"stopping_slope has {slope.size} values and stopping_scale {n}; "
+                             "give one of each per element")
         head = [self.fluence_scale, self.gain_keV, self.offset_keV, self.quadratic_keV,
                 self.fwhm_keV]
-        return np.concatenate([np.asarray(head, dtype=float), self.stopping_scale])
+        return np.concatenate([np.asarray(head, dtype=float), self.stopping_scale,
+                               [float(self.straggling_scale)], slope])
 
     @classmethod
-    def from_array(cls, values) -> "Nuisance":
-        """Inverse of :meth:`to_array`."""
+    def from_array(cls, values, n_elements: int | None = None) -> "Nuisance":
+        """Inverse of :meth:`to_array`.
+
+        Parameters
+        ----------
+        values : array_like
+            ``6 + 2 n`` values (layout in the class notes).
+        n_elements : int, optional
+            Number of elements ``n``.  When given, the older layout of ``5 + n`` values
+            (without straggling scale and slopes: they are set to 1 and 0) is accepted too.
+            Without it an array of the older layout whose length happens to be even would be
+            misread, so pass it whenever an array may be old.
+        """
         v = np.asarray(values, dtype=float)
-        if v.ndim != 1 or v.size < 5:
-            raise ValueError(f"a nuisance array has at least 5 values, got shape {v.shape}")
-        return cls(float(v[0]), float(v[1]), float(v[2]), float(v[3]), float(v[4]), v[5:].copy())
+        if v.ndim != 1:
+            raise ValueError(f"a nuisance array is one-dimensional, got shape {v.shape}")
+        if n_elements is None:
+            if v.size < 6 or (v.size - 6) % 2:
+                raise ValueError(f"a nuisance array has 6 + 2 n values for n elements, got "
+                                 f"{v.size}; pass n_elements for the older 5 + n layout")
+            n = (v.size - 6) // 2
+        else:
+            n = int(n_elements)
+            if v.size == 5 + n:
+                return cls(*(float(x) for x in v[:5]), v[5:].copy())
+            if v.size != 6 + 2 * n:
+                raise ValueError(f"a nuisance array for {n} elements has {6 + 2 * n} values "
+                                 f"(or {5 + n} in the older layout), got {v.size}")
+        return cls(*(float(x) for x in v[:5]), v[5:5 + n].copy(), float(v[5 + n]),
+                   v[6 + n:].copy())
 
     @staticmethod
     def array_names(elements) -> list[str]:
         """Names of the entries of :meth:`to_array` for the given element symbols."""
         head = [f.name for f in fields(Nuisance)][:5]
-        return head + [f"stopping_scale_{sym}" for sym in elements]
+        return (head + [f"stopping_scale_{sym}" for sym in elements] + ["straggling_scale"]
+                + [f"stopping_slope_{sym}" for sym in elements])
 
 
 @dataclass(frozen=True)
@@ -260,6 +340,7 @@ class ForwardModel:
         self._ftab, self._fder = broadening_table()
         self._du = 1.0 / 64.0
         self.grid = self._build_grid(depth_limit_1e15)
+        self._prepare_sample_grids()
         if n_channels is None:
             top = 1.05 * float(np.max(self._iso_k)) * self.energy_keV if self._iso_k.size \
                 else 1.05 * self.energy_keV
@@ -276,6 +357,7 @@ class ForwardModel:
         # derived once, used on every call
         self._edge_channels = np.arange(self.n_channels + 1, dtype=float)
         self._default_nuisance = self.default_nuisance()
+        self._zero_slope = np.zeros(len(self.elements))
         exp = run.exposure
         self._yield_base = (exp.incident_particles * run.detector.solid_angle_msr * 1e-3
                             * 1e-27 * 1e15 * exp.live_fraction * self.inv_cos_in)
@@ -289,7 +371,9 @@ class ForwardModel:
         n_tab = int(math.ceil((e_top - TABLE_FLOOR_KEV) / self.table_step_keV)) + 1
         self.table_energy_keV = TABLE_FLOOR_KEV + self.table_step_keV * np.arange(n_tab)
         e = self.table_energy_keV
-        stop = StoppingModel(run.beam.species, tables=dict(phys.stopping_tables))
+        stop = StoppingModel(run.beam.species, tables=dict(phys.stopping_tables),
+                             carbon=phys.carbon)
+        correction = STRAGGLING_LAWS[phys.straggling]
         self._stopping_model = stop
         n_el = len(self.elements)
         S = np.zeros((n_el, n_tab))
@@ -308,7 +392,8 @@ class ForwardModel:
                 S[i], dS[i] = s_mid, (s_hi - s_lo) / (2 * h)
                 d2S[i] = (s_hi - 2 * s_mid + s_lo) / (h * h)
                 if self.straggling:
-                    r = lambda x: np.asarray(straggling_rate(self._z1, self._m1, {sym: 1.0}, x))  # noqa: E731
+                    r = lambda x: np.asarray(straggling_rate(  # noqa: E731
+                        self._z1, self._m1, {sym: 1.0}, x, correction=correction))
                     W[i], dW[i] = r(e), (r(e + h) - r(e - h)) / (2 * h)
         self._S, self._dS, self._d2S, self._W, self._dW = S, dS, d2S, W, dW
 
@@ -407,11 +492,10 @@ class ForwardModel:
                 li = None  # vacuum below a sample without substrate
             if li is None:
                 width = max_slice if max_slice else max(hard_end - z, 1e-9)
-                width = min(width, hard_end - z)
-                edges.append(z + width)
+                z = hard_end if width >= hard_end - z else z + width
+                edges.append(z)
                 e_in.append(energy)
                 layer_of.append(-1)
-                z += width
                 continue
             comp = comps[li]
             ks = k_all[present[li]] if k_all.size and present[li].any() else np.array([1.0])
@@ -421,19 +505,27 @@ class ForwardModel:
             width = frac * fwhm / eps if eps > 0 else (max_slice or 1.0)
             if max_slice:
                 width = min(width, float(max_slice))
-            if li + 1 < len(tops):
-                width = min(width, tops[li + 1] - z)
-            if math.isfinite(hard_end):
-                width = min(width, hard_end - z)
+            # the next layer boundary (or the end of the grid) is met exactly, so that every
+            # layer boundary is a slice edge
+            boundary = tops[li + 1] if li + 1 < len(tops) else math.inf
+            boundary = min(boundary, hard_end)
+            at_boundary = width >= boundary - z
+            if at_boundary:
+                width = boundary - z
             width = max(width, 1e-9)
             # midpoint step of the nominal energy
             e_half = energy - 0.5 * width * s_in * self.inv_cos_in
             energy = energy - width * float(self._mix_stopping(comp, e_half, scale)) * self.inv_cos_in
-            z += width
+            z = boundary if at_boundary else z + width
             edges.append(z)
             e_in.append(energy)
             layer_of.append(li)
         edges = np.asarray(edges)
+        layer_of = np.asarray(layer_of, dtype=np.int64)
+        #: depth (from the surface) down to which the nominal sample is needed, before the
+        #: margin; see sample_grid
+        self._reach0_1e15 = float(edges[-1]) / _SUBSTRATE_DEPTH_MARGIN
+        self._grid_floor_keV = max(d0, TABLE_FLOOR_KEV)
         if has_substrate and k_all.size:
             # where does the heaviest isotope's signal fall below the lowest characteristic?
             # (followed out for at most 256 sampled depths, so this stays O(n_slices))
@@ -455,12 +547,53 @@ class ForwardModel:
                 np.maximum(sub, 0.0, out=sub)
             below = np.flatnonzero(out_e < d0)
             if below.size:
-                need = max(edges[samples[below[0]]] * _SUBSTRATE_DEPTH_MARGIN, limit)
+                self._reach0_1e15 = float(edges[samples[below[0]]])
+                need = max(self._reach0_1e15 * _SUBSTRATE_DEPTH_MARGIN, limit)
                 cut = int(np.searchsorted(edges, need, side="left"))
                 edges = edges[: min(cut + 1, edges.size)]
         if edges.size < 2:
             edges = np.array([0.0, max(limit, 1.0)])
-        return SliceGrid.from_edges(edges)
+            layer_of = np.array([len(layers) - 1 if has_substrate else 0], dtype=np.int64)
+        return SliceGrid.from_edges(edges, layer_of[: edges.size - 1])
+
+    def _prepare_sample_grids(self):
+        """Per nominal edge: its layer and relative position in it, for :meth:`sample_grid`."""
+        layers = self.run.layers
+        g = self.grid
+        self._substrate = bool(layers[-1].substrate)
+        n_fin = sum(1 for layer in layers if not layer.substrate)
+        t0 = np.array([float(layer.areal_density_1e15) for layer in layers[:n_fin]])
+        tops0 = np.concatenate(([0.0], np.cumsum(t0)))
+        self._t0 = t0
+        self._tops0 = tops0
+        # each edge goes with the slice below it (the last edge with the slice above)
+        lay = np.append(g.layer, g.layer[-1])
+        film = (lay >= 0) & (lay < n_fin)
+        self._edge_film = np.where(film, lay, -1)
+        # depth of each film edge below the top of its layer
+        within = np.zeros(lay.size)
+        for k in range(n_fin):
+            on = lay == k
+            within[on] = g.edges_1e15[on] - tops0[k]
+        self._edge_within = within
+        self._last_substrate_width = 1.0
+        self._rho = 1.0
+        if self._substrate:
+            sub = np.flatnonzero(g.layer == len(layers) - 1)
+            if sub.size:
+                self._last_substrate_width = float(g.widths_1e15[sub[-1]])
+            # largest ratio of any element's stopping to the substrate's over the energies the
+            # grid follows: a film thinner by dt needs at most about rho * dt more substrate
+            e = self.table_energy_keV
+            band = (e >= self._grid_floor_keV) & (e <= self.energy_keV)
+            if band.any():
+                comp = self._element_fractions(layers[-1])
+                s_sub = comp @ self._S[:, band]
+                self._rho = max(1.0, float(np.max(self._S[:, band] / s_sub)))
+        self._layer_rows = np.zeros((len(layers), len(self.species)))
+        for i, (layer, per) in enumerate(zip(layers, self._layer_species)):
+            for sym, f in layer.fractions.items():
+                self._layer_rows[i, self.species.index(per[sym].label)] += f
 
     # ------------------------------------------------------------------------------------------
     # public
@@ -469,14 +602,33 @@ class ForwardModel:
         cal = self.run.calibration
         scale = np.array([self.run.physics.stopping_scale.get(s, 1.0) for s in self.elements])
         return Nuisance(1.0, float(cal.keV_per_channel), float(cal.offset_keV),
-                        float(cal.quadratic_keV), float(self.run.detector.fwhm_keV), scale)
+                        float(cal.quadratic_keV), float(self.run.detector.fwhm_keV), scale,
+                        1.0, np.zeros(len(self.elements)))
 
-    def layer_fractions(self) -> np.ndarray:
-        """The run's layered sample on the grid, ``(n_slices, n_species)``.
+    def layer_fractions(self, grid: SliceGrid | None = None) -> np.ndarray:
+        """The run's layered sample on a grid, ``(n_slices, n_species)``.
 
-        A slice that straddles a layer boundary gets the areal-density-weighted mix; slices
-        below a sample without substrate are rows of zeros (vacuum).
+        Parameters
+        ----------
+        grid : SliceGrid, optional
+            Default: the nominal grid :attr:`grid`, on which a slice that straddles a layer
+            boundary gets the areal-density-weighted mix.  A grid from :meth:`sample_grid`
+            (or any grid with ``layer`` set) gets each slice's layer composition.
+
+        Returns
+        -------
+        numpy.ndarray
+            Atom fractions; slices below a sample without substrate are rows of zeros
+            (vacuum).
         """
+        if grid is not None:
+            if grid.layer is None:
+                raise InputError("the grid has no layer index per slice; build it with "
+                                 "ForwardModel.sample_grid", where="layer_fractions: grid")
+            out = np.zeros((len(grid), len(self.species)))
+            inside = grid.layer >= 0
+            out[inside] = self._layer_rows[grid.layer[inside]]
+            return out
         g = self.grid
         out = np.zeros((len(g), len(self.species)))
         top = 0.0
@@ -492,6 +644,92 @@ class ForwardModel:
             top = bottom
         return out
 
+    @property
+    def finite_layers(self) -> tuple[int, ...]:
+        """Indices (from 0 at the surface) of the run's layers with a finite areal density."""
+        return tuple(range(self._t0.size))
+
+    def sample_grid(self, areal_density_1e15, nuisance=None) -> SliceGrid:
+        """A slice grid that follows a sample whose finite layers have other areal densities.
+
+        Each finite layer's nominal slices are stretched by ``t_k / t0_k`` (``t0_k`` the run
+        file's areal density), so every layer boundary is a slice edge and every edge moves
+        continuously with the ``t_k``; the substrate's (or the vacuum's) slices keep their
+        nominal widths and move down with the bottom of the films.  Counts computed on such
+        grids are smooth functions of the ``t_k``.
+
+        Below a substrate the grid is extended, with slices of the nominal width of the
+        deepest substrate slice, so that it still reaches the depth the spectrum needs: the
+        nominal reach plus, for films thinner than nominal, ``rho`` times the missing areal
+        density (``rho`` the largest ratio of any element's stopping to the substrate's over
+        the energies followed), all times the nominal 20 % margin, divided by the smallest
+        factor by which ``nuisance`` lowers any element's stopping (scale and slope) relative to
+        the run file.  The extra slices lie below the depth at which the kernel stops, so they
+        change the row count but not the counts.
+
+        Parameters
+        ----------
+        areal_density_1e15 : array_like
+            One areal density (1e15 atoms/cm2, >= 0) per finite layer, in the order of
+            :attr:`finite_layers`.
+        nuisance : Nuisance, optional
+            The nuisance the grid will be used with (for the depth reach); default the run
+            file's.
+
+        Returns
+        -------
+        SliceGrid
+            With ``layer`` set (the run-file layer of each slice, -1 for vacuum).
+        """
+        t = np.asarray(areal_density_1e15, dtype=float)
+        if t.shape != self._t0.shape:
+            raise InputError(f"give {self._t0.size} areal densities, one per finite layer; got "
+                             f"shape {t.shape}", where="sample_grid: areal_density_1e15")
+        if t.size and not (t.min() >= 0.0 and t.max() < math.inf):
+            raise InputError("areal densities must be finite and >= 0 (1e15 atoms/cm2)",
+                             where="sample_grid: areal_density_1e15")
+        tops = np.concatenate(([0.0], np.cumsum(t)))
+        total = float(tops[-1])
+        shift = tops - self._tops0
+        film = self._edge_film >= 0
+        k = np.where(film, self._edge_film, 0)
+        # written as changes of the nominal edges, so that t = t0 gives them exactly
+        edges = self.grid.edges_1e15 + shift[-1]
+        if t.size:
+            stretch = t / self._t0 - 1.0
+            edges = np.where(film, self.grid.edges_1e15 + shift[k]
+                             + self._edge_within * stretch[k], edges)
+            # a layer squeezed to zero may leave rounding of -1e-14 in its widths
+            edges = np.maximum.accumulate(edges)
+        layer = self.grid.layer
+        if self._substrate:
+            nu = self._check_nuisance(nuisance)
+            thinner = float(np.sum(np.maximum(self._t0 - t, 0.0)))
+            need = (total + self._reach0_1e15 - self._tops0[-1] + self._rho * thinner) \
+                * _SUBSTRATE_DEPTH_MARGIN / min(1.0, self._lowest_stopping_factor(nu))
+            if edges[-1] < need:
+                w = self._last_substrate_width
+                extra = int(math.ceil((need - edges[-1]) / w))
+                edges = np.concatenate((edges, edges[-1] + w * np.arange(1, extra + 1)))
+                layer = np.concatenate((layer, np.full(extra, len(self.run.layers) - 1)))
+        return SliceGrid.from_edges(edges, layer)
+
+    def sample_edges(self, areal_density_1e15, nuisance=None) -> np.ndarray:
+        """Slice edges of :meth:`sample_grid` (1e15 atoms/cm2, from 0 at the surface)."""
+        return self.sample_grid(areal_density_1e15, nuisance).edges_1e15
+
+    def _lowest_stopping_factor(self, nu) -> float:
+        """Smallest factor, relative to the run file, by which ``nu`` scales any stopping.
+
+        Over the energies the grid follows (``scale * (E/E_ref)^slope`` is monotonic in E, so
+        its two ends bound it).
+        """
+        ratio = nu.stopping_scale / self._default_nuisance.stopping_scale
+        slope = nu.stopping_slope if nu.stopping_slope.size else self._zero_slope
+        ends = np.array([self._grid_floor_keV, self.energy_keV]) / STOPPING_SLOPE_REFERENCE_KEV
+        factor = ratio[:, None] * ends[None, :] ** slope[:, None]
+        return float(factor.min()) if factor.size else 1.0
+
     def _check_nuisance(self, nuisance) -> Nuisance:
         if nuisance is None:
             # built once in __init__ (callers wanting their own copy use default_nuisance())
@@ -501,6 +739,10 @@ class ForwardModel:
         if nuisance.stopping_scale.size != len(self.elements):
             raise InputError(f"stopping_scale has {nuisance.stopping_scale.size} values; give one "
                              f"per element ({', '.join(self.elements)})", where="nuisance: stopping_scale")
+        if nuisance.stopping_slope.size not in (0, len(self.elements)):
+            raise InputError(f"stopping_slope has {nuisance.stopping_slope.size} values; give one "
+                             f"per element ({', '.join(self.elements)}) or none",
+                             where="nuisance: stopping_slope")
         return nuisance
 
     def channel_edges_keV(self, nuisance=None) -> np.ndarray:
@@ -526,15 +768,34 @@ class ForwardModel:
         c = np.arange(self.n_channels, dtype=float) + 0.5
         return nu.offset_keV + nu.gain_keV * c + nu.quadratic_keV * c * c
 
-    def kernel_arguments(self, fractions, nuisance=None, *, per_species=False, per_isotope=False,
-                         record=None):
-        """The plain arguments of :func:`forward._kernel.spectrum_kernel`, as a tuple."""
+    def kernel_inputs(self, fractions, nuisance=None, *, widths_1e15=None, per_species=False,
+                      per_isotope=False, record=None) -> KernelInputs:
+        """The inputs of :func:`forward._kernel.spectrum_kernel` for one slice table.
+
+        Parameters are those of :meth:`expected_counts`; ``record`` is the kernel's record
+        array (see :meth:`edge_table`).  Call the kernel as ``spectrum_kernel(*inputs)``.
+        """
         nu = self._check_nuisance(nuisance)
         fr = np.ascontiguousarray(fractions, dtype=float)
-        n, m = len(self.grid), len(self.species)
-        if fr.shape != (n, m):
-            raise InputError(f"the fraction table has shape {fr.shape}; it must be "
-                             f"(n_slices, n_species) = ({n}, {m})", where="fractions")
+        m = len(self.species)
+        if widths_1e15 is None:
+            widths = self.grid.widths_1e15
+            n = widths.size
+            if fr.shape != (n, m):
+                raise InputError(f"the fraction table has shape {fr.shape}; it must be "
+                                 f"(n_slices, n_species) = ({n}, {m})", where="fractions")
+        else:
+            widths = np.ascontiguousarray(widths_1e15, dtype=float)
+            if widths.ndim != 1 or widths.size < 1:
+                raise InputError(f"widths_1e15 has shape {widths.shape}; give one areal density "
+                                 "per slice (a 1-D array)", where="widths_1e15")
+            if not (widths.min() >= 0.0 and widths.max() < math.inf):
+                raise InputError("slice widths must be finite and >= 0 (1e15 atoms/cm2)",
+                                 where="widths_1e15")
+            if fr.shape != (widths.size, m):
+                raise InputError(f"the fraction table has shape {fr.shape}; with {widths.size} "
+                                 f"slice widths it must be (n_slices, n_species) = "
+                                 f"({widths.size}, {m})", where="fractions")
         # min >= 0 is False for NaN; max < inf catches infinities: two passes over the table
         if fr.size and not (fr.min() >= 0.0 and fr.max() < math.inf):
             raise InputError("fractions must be finite and >= 0", where="fractions")
@@ -546,20 +807,35 @@ class ForwardModel:
                                  where=f"nuisance: {name}")
         if not np.all(np.isfinite(nu.stopping_scale) & (nu.stopping_scale > 0)):
             raise InputError("stopping scales must be finite and > 0", where="nuisance: stopping_scale")
+        w_scale = float(nu.straggling_scale)
+        if not (math.isfinite(w_scale) and w_scale >= 0.0):
+            raise InputError(f"straggling_scale={nu.straggling_scale!r}; it must be a finite "
+                             "number >= 0", where="nuisance: straggling_scale")
+        slope = nu.stopping_slope
+        if slope.size == 0:
+            slope = self._zero_slope
+        elif not np.all(np.isfinite(slope)):
+            raise InputError("stopping slopes must be finite numbers", where="nuisance: stopping_slope")
         yield_factor = self._yield_base * nu.fluence_scale
         edges = self.channel_edges_keV(nu)[self.first_channel:]
         rec = self._empty_record if record is None else record
-        return (self.grid.widths_1e15, fr, self.species_element, len(self.elements),
-                float(self.table_energy_keV[0]), self.table_step_keV,
-                self._S, self._dS, self._d2S, self._W, self._dW,
-                np.ascontiguousarray(nu.stopping_scale, dtype=float),
-                self._iso_species, self._iso_k, self._iso_weight, self._e3sigma,
-                self.energy_keV, self.inv_cos_in, self.inv_cos_out, yield_factor,
-                edges, float(nu.fwhm_keV) * FWHM_TO_SIGMA, self.particle_step_keV,
-                TABLE_FLOOR_KEV, self._ftab, self._fder, BROADENING_HALF_WIDTH, self._du,
-                2 if per_isotope else (1 if per_species else 0), rec)
+        mode = ROWS_PER_ISOTOPE if per_isotope else (ROWS_PER_SPECIES if per_species else ROWS_TOTAL)
+        return KernelInputs(
+            widths, fr, self.species_element, len(self.elements),
+            float(self.table_energy_keV[0]), self.table_step_keV,
+            self._S, self._dS, self._d2S, self._W, self._dW,
+            np.ascontiguousarray(nu.stopping_scale, dtype=float),
+            np.ascontiguousarray(slope, dtype=float), STOPPING_SLOPE_REFERENCE_KEV, w_scale,
+            self._iso_species, self._iso_k, self._iso_weight, self._e3sigma,
+            self.energy_keV, self.inv_cos_in, self.inv_cos_out, yield_factor,
+            edges, float(nu.fwhm_keV) * FWHM_TO_SIGMA, self.particle_step_keV,
+            TABLE_FLOOR_KEV, self._ftab, self._fder, BROADENING_HALF_WIDTH, self._du,
+            mode, rec)
 
-    def expected_counts(self, fractions, nuisance=None, *, per_species=False,
+    #: Older name of :meth:`kernel_inputs` (it returned a plain tuple in the same order).
+    kernel_arguments = kernel_inputs
+
+    def expected_counts(self, fractions, nuisance=None, *, widths_1e15=None, per_species=False,
                         per_isotope=False) -> np.ndarray:
         """Expected counts per channel.
 
@@ -569,6 +845,10 @@ class ForwardModel:
             Atom fractions per slice (rows of zeros are vacuum).
         nuisance : Nuisance, optional
             Default: :meth:`default_nuisance`.
+        widths_1e15 : (n_slices,) array_like, optional
+            Areal density of each slice, 1e15 atoms/cm2 (>= 0), from the surface down, for a
+            slice table of the caller's own (any number of rows, e.g. from
+            :meth:`sample_grid`).  Default: the nominal :attr:`grid`.
         per_species : bool, optional
             Return ``(n_species, n_channels)``, one spectrum per species.
         per_isotope : bool, optional
@@ -584,9 +864,9 @@ class ForwardModel:
         if per_species and per_isotope:
             raise InputError("ask for per_species or per_isotope, not both",
                              where="expected_counts")
-        args = self.kernel_arguments(fractions, nuisance, per_species=per_species,
-                                     per_isotope=per_isotope)
-        out = spectrum_kernel(*args)
+        inputs = self.kernel_inputs(fractions, nuisance, widths_1e15=widths_1e15,
+                                    per_species=per_species, per_isotope=per_isotope)
+        out = spectrum_kernel(*inputs)
         if self.first_channel:
             full = np.zeros((out.shape[0], self.n_channels))
             full[:, self.first_channel:] = out
@@ -617,8 +897,17 @@ class ForwardModel:
             np.add.at(piled, idx[ok], (conv * w)[ok])
         return (1.0 - p) * single + 0.5 * p * n_total * piled
 
-    def edge_table(self, fractions=None, nuisance=None) -> np.ndarray:
+    def edge_table(self, fractions=None, nuisance=None, *, widths_1e15=None) -> np.ndarray:
         """Per grid edge and isotope: detected energy, straggling variance, energy before scattering.
+
+        Parameters
+        ----------
+        fractions : (n_slices, n_species) array_like, optional
+            Default: the run's layered sample on the nominal grid (then ``widths_1e15`` must
+            not be given).
+        nuisance : Nuisance, optional
+        widths_1e15 : (n_slices,) array_like, optional
+            Slice widths of the caller's own table, as in :meth:`expected_counts`.
 
         Returns
         -------
@@ -628,24 +917,35 @@ class ForwardModel:
             detector term not included), ``[..., 2]`` the ion energy just before scattering.
             NaN below the depth the model follows.
         """
-        fr = self.layer_fractions() if fractions is None else fractions
-        rec = np.zeros((len(self.grid) + 1, self._iso_k.size, 3))
-        spectrum_kernel(*self.kernel_arguments(fr, nuisance, record=rec))
+        if fractions is None:
+            if widths_1e15 is not None:
+                raise InputError("give the fractions that go with widths_1e15",
+                                 where="edge_table: fractions")
+            fractions = self.layer_fractions()
+        n = len(self.grid) if widths_1e15 is None else np.size(widths_1e15)
+        rec = np.zeros((n + 1, self._iso_k.size, 3))
+        spectrum_kernel(*self.kernel_inputs(fractions, nuisance, widths_1e15=widths_1e15,
+                                            record=rec))
         return rec
 
-    def depth_map(self, nuisance=None, fractions=None) -> dict:
+    def depth_map(self, nuisance=None, fractions=None, *, widths_1e15=None) -> dict:
         """Detected surface-edge-to-depth map per species.
 
         For each species, the detected energy (keV) of ions scattered by its most abundant
         isotope at each grid edge, and that edge's depth (1e15 atoms/cm2), for the run's
-        layered sample unless ``fractions`` is given.
+        layered sample unless ``fractions`` (and optionally ``widths_1e15``, as in
+        :meth:`expected_counts`) are given.
 
         Returns
         -------
         dict[str, tuple[numpy.ndarray, numpy.ndarray]]
             species -> ``(energy_keV, depth_1e15)``, energy decreasing with depth.
         """
-        rec = self.edge_table(fractions, nuisance)
+        rec = self.edge_table(fractions, nuisance, widths_1e15=widths_1e15)
+        if widths_1e15 is None:
+            depth = self.grid.edges_1e15
+        else:
+            depth = np.concatenate(([0.0], np.cumsum(np.asarray(widths_1e15, dtype=float))))
         out = {}
         for sp, label in enumerate(self.species):
             idx = np.flatnonzero(self._iso_species == sp)
@@ -655,5 +955,5 @@ class ForwardModel:
             q = idx[np.argmax(self._iso_weight[idx])]
             e = rec[:, q, 0]
             ok = np.isfinite(e)
-            out[label] = (e[ok].copy(), self.grid.edges_1e15[ok].copy())
+            out[label] = (e[ok].copy(), depth[ok].copy())
         return out

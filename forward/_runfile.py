@@ -59,6 +59,8 @@ __all__ = [
     "cornell_angles",
     "check_angle_triple",
     "SCREENING_CHOICES",
+    "STRAGGLING_CHOICES",
+    "CARBON_CHOICES",
     "LAYOUT_CHOICES",
     "MAX_CHANNELS",
     "MIN_BEAM_KEV",
@@ -72,6 +74,10 @@ __all__ = [
 
 #: Screening corrections the cross-section module knows.
 SCREENING_CHOICES = ("andersen", "lecuyer", "none")
+#: Straggling laws (forward._straggling.STRAGGLING_LAWS); the first is the default.
+STRAGGLING_CHOICES = ("lindhard-scharff", "bohr")
+#: Helium stopping coefficients for carbon (forward._stopping.CARBON_PHASES); first: default.
+CARBON_CHOICES = ("graphite", "amorphous")
 #: Named tilt layouts; ``"direct"`` is recorded when both angles are given.
 LAYOUT_CHOICES = ("IBM", "Cornell")
 #: A calibration must increase over at least this many channels (2**16, common ADC sizes);
@@ -435,6 +441,8 @@ class Physics:
     stopping_scale: dict = field(default_factory=dict)
     cross_section_ratio: dict = field(default_factory=dict)
     pileup: Pileup = field(default_factory=Pileup)
+    straggling: str = "lindhard-scharff"
+    carbon: str = "graphite"
 
 
 @dataclass(frozen=True)
@@ -1023,9 +1031,12 @@ def _read_isotopes(t: _Table, fractions: dict) -> dict:
 def _read_physics(source, top, layers: list[Layer], base_dir: Path) -> Physics:
     t = _section(source, top, "physics",
                  ("screening", "slice_fraction", "max_slice_1e15", "stopping_tables",
-                  "stopping_scale", "cross_section_ratio", "pileup"), required=False)
+                  "stopping_scale", "cross_section_ratio", "pileup", "straggling", "carbon"),
+                 required=False)
     present = {sym for layer in layers for sym in layer.fractions}
     screening = t.string("screening", "andersen", choices=SCREENING_CHOICES)
+    straggling = t.string("straggling", STRAGGLING_CHOICES[0], choices=STRAGGLING_CHOICES)
+    carbon = t.string("carbon", CARBON_CHOICES[0], choices=CARBON_CHOICES)
     slice_fraction = t.number("slice_fraction", 0.25, low=0.0, high=1.0)
     max_slice = t.number("max_slice_1e15", None, low=0.0, unit="1e15 atoms/cm2")
 
@@ -1077,5 +1088,6 @@ def _read_physics(source, top, layers: list[Layer], base_dir: Path) -> Physics:
             raise InputError(f"count_rate_hz * resolving_time gives a pile-up probability of "
                              f"{pileup.probability:.3g}; the first-order model holds only below 0.1",
                              where=p.where("count_rate_hz"))
-    return Physics(screening, slice_fraction, max_slice, tables, scale, ratio, pileup)
+    return Physics(screening, slice_fraction, max_slice, tables, scale, ratio, pileup,
+                   straggling, carbon)
 

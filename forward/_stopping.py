@@ -14,6 +14,9 @@ Electronic stopping of 4He
         S      = S_low S_high / (S_low + S_high)
 
     Below 1 keV the 1 keV value is scaled with sqrt(E) (stopping proportional to velocity).
+    Carbon: the coefficient file's row is graphite; ICRU Report 49 gives amorphous carbon its
+    own coefficients (``data/stopping/helium_icru49_phases.csv``), chosen with
+    ``carbon="amorphous"``.
 
 Electronic stopping of 3He
     The 4He value at the same velocity, i.e. at E m(4He)/m(3He) (stopping of a bare or
@@ -48,7 +51,13 @@ from ._elements import element, ion as _ion, parse_formula
 from ._errors import InputError
 
 __all__ = [
+    "CARBON_PHASES",
     "HELIUM_COEFFICIENT_FILE",
+    "HELIUM_PHASE_FILE",
+    "HELIUM_UNCERTAINTY_FILE",
+    "STOPPING_SLOPE_REFERENCE_KEV",
+    "UNCERTAINTY_BAND_KEV",
+    "stopping_uncertainty",
     "VALIDATED_MAX_KEV",
     "StoppingRangeWarning",
     "StoppingTable",
@@ -65,12 +74,21 @@ __all__ = [
 
 #: File name of the 4He electronic stopping coefficients (Ziegler 1977, ICRU 49 revisions).
 HELIUM_COEFFICIENT_FILE = "helium_ziegler1977_icru49.csv"
+#: File name of the 4He coefficients of other phases of an element (ICRU 49 amorphous carbon).
+HELIUM_PHASE_FILE = "helium_icru49_phases.csv"
+#: Phases of carbon the helium stopping knows; the first is the default (the main file's row).
+CARBON_PHASES = ("graphite", "amorphous")
 
 #: Highest 4He energy (keV) up to which the electronic stopping has been compared with NIST
 #: ASTAR element by element (tests/test_stopping.py, docs/stopping_vs_astar.md).  Up to here
 #: most elements agree within a few per cent; above it the fitted form and the database part
 #: ways (e.g. Be and Xe by 8-17 % at 4-6 MeV).  RBS with 1-3 MeV helium stays below it.
 VALIDATED_MAX_KEV = 3000.0
+
+#: Reference energy (keV) of a stopping slope: a slope ``b`` multiplies an element's stopping by
+#: ``(E / STOPPING_SLOPE_REFERENCE_KEV)**b``, leaving it unchanged at this energy (the middle of
+#: the energies a 1-3 MeV helium beam spends its path at).
+STOPPING_SLOPE_REFERENCE_KEV = 1000.0
 
 #: Energy (keV) below which the electronic stopping is scaled with sqrt(E).
 _LOW_ENERGY_KEV = 1.0
@@ -127,6 +145,26 @@ def _helium_coefficients() -> np.ndarray:
     return table
 
 
+@lru_cache(maxsize=1)
+def _helium_phase_coefficients() -> dict:
+    """{(Z, phase): (a0..a4)} of the phase file."""
+    path = find_stopping_data(HELIUM_PHASE_FILE)
+    out = {}
+    with path.open(newline="") as fh:
+        rows = csv.DictReader(line for line in fh if not line.lstrip().startswith("#"))
+        for row in rows:
+            out[(int(row["Z"]), row["phase"])] = tuple(float(row[k])
+                                                       for k in ("a0", "a1", "a2", "a3", "a4"))
+    return out
+
+
+def _check_carbon(carbon) -> str:
+    if carbon not in CARBON_PHASES:
+        raise InputError(f"unknown carbon phase {carbon!r}; allowed: "
+                         + ", ".join(repr(c) for c in CARBON_PHASES))
+    return carbon
+
+
 # --------------------------------------------------------------------------------------------
 # input checks
 # --------------------------------------------------------------------------------------------
@@ -168,7 +206,7 @@ def _target(symbol: str) -> tuple[int, float]:
 # electronic stopping
 # --------------------------------------------------------------------------------------------
 
-def helium_electronic_stopping(z2: int, energy_keV):
+def helium_electronic_stopping(z2: int, energy_keV, *, carbon: str = "graphite"):
     """Electronic stopping cross-section of 4He in element ``z2``.
 
     Ziegler (1977) five-coefficient form with the ICRU Report 49 revisions (see module notes).
@@ -179,6 +217,9 @@ def helium_electronic_stopping(z2: int, energy_keV):
         Atomic number of the target element, 1-92.
     energy_keV : float or array_like
         4He kinetic energy in keV, >= 0.
+    carbon : {"graphite", "amorphous"}, optional
+        Coefficients used for carbon (z2 = 6): graphite (default) or ICRU Report 49's
+        amorphous carbon.  Ignored for other elements.
 
     Returns
     -------
@@ -187,7 +228,10 @@ def helium_electronic_stopping(z2: int, energy_keV):
     """
     z2 = _check_z(z2)
     e = _energies(energy_keV)
-    a0, a1, a2, a3, a4 = _helium_coefficients()[z2]
+    if z2 == 6 and _check_carbon(carbon) != CARBON_PHASES[0]:
+        a0, a1, a2, a3, a4 = _helium_phase_coefficients()[(6, carbon)]
+    else:
+        a0, a1, a2, a3, a4 = _helium_coefficients()[z2]
     e_fit = np.maximum(e, _LOW_ENERGY_KEV)
     t_MeV = e_fit / 1000.0
     s_low = a0 * e_fit ** a1
@@ -438,6 +482,12 @@ class StoppingModel:
         Element symbol -> factor (> 0) multiplying that element's stopping, tabulated or not.
     nuclear : bool, default True
         Include nuclear stopping for elements without a user table.
+    carbon : {"graphite", "amorphous"}, default "graphite"
+        Which helium coefficients carbon uses (see :func:`helium_electronic_stopping`).
+    slope : dict[str, float], optional
+        Element symbol -> exponent ``b``: that element's stopping (tabulated or not) is also
+        multiplied by ``(E / STOPPING_SLOPE_REFERENCE_KEV)**b`` (the shape nuisance of the
+        spectrum model, :class:`forward.Nuisance`; here for checks and studies).
 
     Notes
     -----
@@ -447,7 +497,8 @@ class StoppingModel:
     """
 
     def __init__(self, ion: str = "4He", tables: Mapping | None = None,
-                 scale: Mapping[str, float] | None = None, nuclear: bool = True):
+                 scale: Mapping[str, float] | None = None, nuclear: bool = True,
+                 carbon: str = "graphite", slope: Mapping[str, float] | None = None):
         beam = _ion(ion)  # raises InputError for protons and unknown ions
         self.ion = ion
         self.z1 = beam.z
@@ -455,6 +506,7 @@ class StoppingModel:
         # The 4He energy with the same velocity as this ion at energy E is E * m(4He) / m.
         self._to_4he = _ion("4He").mass_u / beam.mass_u
         self.include_nuclear = bool(nuclear)
+        self.carbon = _check_carbon(carbon)
         self.tables: dict[str, StoppingTable] = {}
         for symbol, table in (tables or {}).items():
             _target(symbol)
@@ -472,13 +524,29 @@ class StoppingModel:
                 raise InputError(f"stopping scale for {symbol} is {factor!r}; "
                                  "it must be a finite number > 0 (1 = unchanged)")
             self.scale[symbol] = value
+        self.slope: dict[str, float] = {}
+        for symbol, b in (slope or {}).items():
+            _target(symbol)
+            try:
+                value = float(b)
+            except (TypeError, ValueError):
+                value = math.nan
+            if not math.isfinite(value):
+                raise InputError(f"stopping slope for {symbol} is {b!r}; it must be a finite "
+                                 "number (0 = unchanged)")
+            self.slope[symbol] = value
 
     def __repr__(self) -> str:
         return (f"StoppingModel(ion={self.ion!r}, tables={sorted(self.tables)}, "
-                f"scale={self.scale}, nuclear={self.include_nuclear})")
+                f"scale={self.scale}, nuclear={self.include_nuclear}, carbon={self.carbon!r}, "
+                f"slope={self.slope})")
 
-    def _factor(self, symbol: str) -> float:
-        return self.scale.get(symbol, 1.0)
+    def _factor(self, symbol: str, energy_keV=None):
+        f = self.scale.get(symbol, 1.0)
+        b = self.slope.get(symbol, 0.0)
+        if b and energy_keV is not None:
+            return f * (np.asarray(energy_keV, dtype=float) / STOPPING_SLOPE_REFERENCE_KEV) ** b
+        return f
 
     def electronic(self, symbol: str, energy_keV):
         """Electronic stopping per atom of ``symbol`` (or its user table), after scaling.
@@ -500,8 +568,8 @@ class StoppingModel:
             s = np.asarray(self.tables[symbol](energy_keV))
         else:
             e = _energies(energy_keV)
-            s = np.asarray(helium_electronic_stopping(z2, e * self._to_4he))
-        s = s * self._factor(symbol)
+            s = np.asarray(helium_electronic_stopping(z2, e * self._to_4he, carbon=self.carbon))
+        s = s * self._factor(symbol, energy_keV)
         return s if s.ndim else float(s)
 
     def nuclear(self, symbol: str, energy_keV):
@@ -526,7 +594,7 @@ class StoppingModel:
         if symbol in self.tables or not self.include_nuclear:
             s = np.zeros_like(e)
         else:
-            s = np.asarray(nuclear_stopping(self.z1, self.m1_u, z2, m2, e)) * self._factor(symbol)
+            s = np.asarray(nuclear_stopping(self.z1, self.m1_u, z2, m2, e)) * self._factor(symbol, e)
         return s if s.ndim else float(s)
 
     def element(self, symbol: str, energy_keV):
@@ -588,7 +656,8 @@ class StoppingModel:
 
 
 def stopping(ion: str, target: str, energy_keV, *, nuclear: bool = True,
-             tables: Mapping | None = None, scale: Mapping[str, float] | None = None):
+             tables: Mapping | None = None, scale: Mapping[str, float] | None = None,
+             carbon: str = "graphite"):
     """Stopping cross-section of a helium ion in an element or a compound, per target atom.
 
     Parameters
@@ -603,13 +672,15 @@ def stopping(ion: str, target: str, energy_keV, *, nuclear: bool = True,
         Include nuclear stopping.
     tables, scale : dict, optional
         As for :class:`StoppingModel`.
+    carbon : {"graphite", "amorphous"}, default "graphite"
+        Which helium coefficients carbon uses.
 
     Returns
     -------
     float or numpy.ndarray
         eV/(1e15 atoms/cm2) per atom of the target (Bragg's rule for compounds).
     """
-    model = StoppingModel(ion, tables=tables, scale=scale, nuclear=nuclear)
+    model = StoppingModel(ion, tables=tables, scale=scale, nuclear=nuclear, carbon=carbon)
     try:
         _target(target)
         fractions = {target: 1.0}
@@ -642,3 +713,106 @@ def check_stopping_range(energy_keV, ion: str = "4He") -> bool:
                       "stopping errors of several per cent", StoppingRangeWarning, stacklevel=2)
         return False
     return True
+
+
+# --------------------------------------------------------------------------------------------
+# how well the stopping is known: prior widths for the stopping nuisances
+# --------------------------------------------------------------------------------------------
+
+#: File of recommended prior widths per element (written by benchmarks/stopping_vs_astar.py).
+HELIUM_UNCERTAINTY_FILE = "helium_stopping_uncertainty.csv"
+
+#: Energy band (keV) over which the widths were measured: the energies 1-3 MeV helium spends its
+#: path at in a backscattering measurement, down to the low-energy end of typical spectra.
+UNCERTAINTY_BAND_KEV = (200.0, 3000.0)
+
+#: Elements whose ICRU Report 49 helium stopping leaves the coefficient form above about 1 MeV
+#: (Bethe theory there): Be, C, N, O and Z >= 55 (ICRU Report 49, 1993).
+_FORM_DEPARTS_Z = frozenset({4, 6, 7, 8})
+
+
+def _coefficient_form_departs(z2: int) -> bool:
+    return z2 >= 55 or z2 in _FORM_DEPARTS_Z
+
+
+@lru_cache(maxsize=1)
+def _uncertainty_rows() -> tuple[dict, ...]:
+    path = find_stopping_data(HELIUM_UNCERTAINTY_FILE)
+    with path.open(newline="") as fh:
+        rows = csv.DictReader(line for line in fh if not line.lstrip().startswith("#"))
+        out = []
+        for row in rows:
+            row = dict(row)
+            row["Z"] = int(row["Z"])
+            row["scale_sd"] = float(row["scale_sd"])
+            row["slope_sd"] = float(row["slope_sd"])
+            out.append(row)
+    return tuple(out)
+
+
+def stopping_uncertainty(symbol: str, ion: str = "4He", *, carbon: str = "graphite",
+                         oxide: bool = False) -> tuple[float, float]:
+    """Recommended prior widths of an element's stopping scale and stopping slope.
+
+    The spectrum model multiplies an element's stopping by
+    ``stopping_scale * (E / 1000 keV)**stopping_slope`` (:class:`forward.Nuisance`).  These are
+    standard deviations for priors centred on 1 and 0, set from the measured spread of our
+    helium electronic stopping against NIST ASTAR (M. J. Berger et al., NIST Standard Reference
+    Database 124, implementing ICRU Report 49), ``benchmarks/stopping_vs_astar.py``, and stored
+    in ``data/stopping/helium_stopping_uncertainty.csv``:
+
+    * for each element ASTAR tabulates, ``ln(S_ASTAR / S_ours)`` over 200-3000 keV is fitted
+      with a line ``a + b ln(E / 1000 keV)`` (residual rms ``r``);
+      ``scale_sd = sqrt(f_s^2 + a^2 + r^2)`` and ``slope_sd = sqrt(f_b^2 + b^2)``, with floors
+      ``f_s``, ``f_b`` the root mean square of ``sqrt(a^2 + r^2)`` and of ``b`` over all those
+      elements (agreement with one evaluation does not make an element better known than
+      evaluations typically differ).  With these widths ASTAR lies within 2 standard
+      deviations of the prior at every energy of the band, for every element (tested);
+    * an element ASTAR does not tabulate gets the root mean square of the widths of the
+      measured elements of its class: those whose ICRU 49 stopping leaves the coefficient form
+      above about 1 MeV (Be, C, N, O and Z >= 55; wider) and the others;
+    * ``oxide=True`` (oxygen only) gives the widths for oxygen bound in a solid oxide, from
+      ASTAR's SiO2 and Al2O3 against Bragg's rule with our elements, the whole difference laid
+      on oxygen: ASTAR's oxides stop 15-20 % less than Bragg's rule below 1 MeV (chemical and
+      phase effects), so these widths are several times larger.
+
+    Widths are for the built-in stopping; an element whose stopping comes from a user table is
+    as well known as that table.
+
+    Parameters
+    ----------
+    symbol : str
+        Element symbol.
+    ion : {"4He", "3He"}, optional
+        Beam ion.  3He gets the 4He widths (its stopping is the 4He value at equal velocity;
+        the slope is the same and the scale moves by ``b ln(4/3)``, well inside the floor).
+    carbon : {"graphite", "amorphous"}, optional
+        For carbon: which coefficients the run uses (``[physics] carbon``).
+    oxide : bool, optional
+        Oxygen bound in a solid oxide instead of oxygen alone.
+
+    Returns
+    -------
+    scale_sd, slope_sd : float
+        Standard deviations of ``stopping_scale`` (around 1) and ``stopping_slope`` (around 0).
+    """
+    _ion(ion)  # protons and unknown ions raise InputError
+    z2, _ = _target(symbol)
+    phase = _check_carbon(carbon) if z2 == 6 else None
+    rows = _uncertainty_rows()
+    if oxide:
+        if symbol != "O":
+            raise InputError(f"oxide widths exist for oxygen only, not {symbol!r}",
+                             where="stopping_uncertainty: oxide")
+        row = next(r for r in rows if r["symbol"] == "O" and r["phase"] == "oxide")
+        return row["scale_sd"], row["slope_sd"]
+    for r in rows:
+        if r["symbol"] == symbol and r["phase"] != "oxide" and (phase is None
+                                                                 or r["phase"] == phase):
+            return r["scale_sd"], r["slope_sd"]
+    # not tabulated by ASTAR: the root mean square of its class (default phases only)
+    same = [r for r in rows if r["phase"] not in ("oxide", "amorphous")
+            and _coefficient_form_departs(r["Z"]) == _coefficient_form_departs(z2)]
+    scale = math.sqrt(sum(r["scale_sd"] ** 2 for r in same) / len(same))
+    slope = math.sqrt(sum(r["slope_sd"] ** 2 for r in same) / len(same))
+    return scale, slope

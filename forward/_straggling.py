@@ -18,8 +18,12 @@ with v0 the Bohr velocity.  As printed, L(chi)/2 exceeds 1 between chi ~ 2.28 an
 drops to 1; we cap the ratio at 1 (never above Bohr's value, which is the fast-ion limit), so the
 correction is continuous.  Below chi ~ 2.28 it is exactly the printed formula.
 
-(W. K. Chu's correction, Phys. Rev. A 13 (1976) 2057, is not used: we do not carry its fitted
-constants.)
+A run file chooses the law with ``[physics] straggling`` (:data:`STRAGGLING_LAWS`):
+``"lindhard-scharff"`` (the default, as above) or ``"bohr"`` (Bohr's value at every energy, no
+low-energy correction).  The corrections of W. K. Chu, Phys. Rev. A 13 (1976) 2057, and of
+Q. Yang, D. J. O'Connor and Z. Wang, NIM B 61 (1991) 149, are not offered: their fitted
+constants are not at hand here, and we do not quote them from memory.  The spectrum model's
+straggling-scale nuisance (:class:`forward.Nuisance`) multiplies whichever law is chosen.
 
 Along a path, the variance of the ion energy obeys
 
@@ -39,7 +43,7 @@ from scipy import constants
 
 from ._elements import element
 from ._errors import InputError
-from ._path import _check_array, _checked_stopping, _dopri_integrate, _path_cosine
+from ._ode import _check_array, _checked_stopping, _dopri_integrate, _path_cosine
 
 __all__ = [
     "bohr_variance",
@@ -48,6 +52,7 @@ __all__ = [
     "straggling_rate",
     "propagate",
     "CORRECTIONS",
+    "STRAGGLING_LAWS",
 ]
 
 #: e^2 / (4 pi eps_0) in keV cm, from CODATA values in scipy.constants.
@@ -67,6 +72,10 @@ _DERIVATIVE_REL_STEP = 1e-4
 
 #: Low-energy corrections that :func:`straggling_rate` knows.
 CORRECTIONS = ("lindhard-scharff", "none")
+
+#: Straggling laws a run file can choose (``[physics] straggling``), each with the
+#: low-energy correction :func:`straggling_rate` applies for it; the first is the default.
+STRAGGLING_LAWS = {"lindhard-scharff": "lindhard-scharff", "bohr": "none"}
 
 
 def bohr_variance(z1, z2, areal_density_1e15):
@@ -210,7 +219,7 @@ def propagate(stopping_fn: Callable, rate_fn: Callable, energy_keV, variance_keV
 
         dE/dx = -S(E)/1000,     dVar/dx = -2 (dS/dE)/1000 * Var + rate(E),
 
-    with the adaptive Dormand-Prince 5(4) integrator of :mod:`forward._path`.  dS/dE is a
+    with the adaptive Dormand-Prince 5(4) integrator of :mod:`forward._ode`.  dS/dE is a
     central finite difference of ``stopping_fn`` with relative step 1e-4 (see
     ``_DERIVATIVE_REL_STEP``).
 

@@ -6,6 +6,14 @@ with plain numpy, the characteristics are updated as whole arrays, and every smo
 integrated over every channel with the exact ``F(x) = x Phi(x/s) + s phi(x/s)`` from
 scipy.special instead of the interpolated table.  The broadening table arguments are accepted
 and ignored.
+
+Two nuisances are applied where the physics reads them rather than the way the kernel does:
+an element's stopping slope multiplies its interpolated stopping at each energy by
+``(E/E_ref)^b``, with the derivatives of that product written out (the kernel rescales its tables
+once instead), and the straggling scale multiplies the mixture's straggling rate.
+
+The arguments are the fields of :class:`forward._kernel.KernelInputs`: call
+``spectrum_kernel_reference(*inputs)``.
 """
 
 from __future__ import annotations
@@ -38,14 +46,18 @@ def _hermite(x, x0, x1, y0, y1, d0, d1):
 
 
 class _Tables:
-    def __init__(self, e0, step, S, dS, d2S, W, dW, scale):
+    def __init__(self, e0, step, S, dS, d2S, W, dW, scale, slope=None, e_ref=1000.0,
+                 w_scale=1.0):
         self.e0, self.step = e0, step
         self.S, self.dS, self.d2S, self.W, self.dW = S, dS, d2S, W, dW
         self.scale = scale
+        self.slope = np.zeros(S.shape[0]) if slope is None else np.asarray(slope, dtype=float)
+        self.e_ref = e_ref
+        self.w_scale = w_scale
         self.n = S.shape[1]
 
     def mixture(self, energy, comp):
-        """S, S', S'' (scaled) and W, W' of element fractions ``comp`` at energies ``energy``."""
+        """S, S', S'' (scaled, tilted) and W, W' (scaled) of element fractions ``comp``."""
         energy = np.atleast_1d(np.asarray(energy, dtype=float))
         pos = np.clip((energy - self.e0) / self.step, 0.0, None)
         i = np.minimum(pos.astype(int), self.n - 2)
@@ -58,23 +70,33 @@ class _Tables:
             s, _ = _hermite(x0 + t * self.step, x0, x0 + self.step, self.S[el, i],
                             self.S[el, i + 1], self.dS[el, i], self.dS[el, i + 1])
             lin = [(1 - t) * a[el, i] + t * a[el, i + 1] for a in (self.dS, self.d2S, self.W, self.dW)]
+            ds, d2s = lin[0], lin[1]
+            b = self.slope[el]
+            if b != 0.0:
+                # S f with f = (E/E_ref)^b: (S f)' = S' f + S f b/E,
+                # (S f)'' = S'' f + 2 S' f b/E + S f b (b - 1)/E^2
+                f = (energy / self.e_ref) ** b
+                s, ds, d2s = (s * f, (ds + s * b / energy) * f,
+                              (d2s + 2 * ds * b / energy + s * b * (b - 1) / energy**2) * f)
             cs = c * self.scale[el]
             out[0] += cs * s
-            out[1] += cs * lin[0]
-            out[2] += cs * lin[1]
-            out[3] += c * lin[2]
-            out[4] += c * lin[3]
+            out[1] += cs * ds
+            out[2] += cs * d2s
+            out[3] += c * self.w_scale * lin[2]
+            out[4] += c * self.w_scale * lin[3]
         return out
 
 
 def spectrum_kernel_reference(widths_1e15, fractions, species_element, n_elements,
                               tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
+                              stopping_slope, slope_reference_keV, straggling_scale,
                               iso_species, iso_k, iso_weight, e3sigma,
                               energy_keV, inv_cos_in, inv_cos_out, yield_factor,
                               edges_keV, sigma_det_keV, particle_step_keV, floor_keV,
                               ftab, fder, u_max, du, rows_mode, record):
     """Same result as :func:`forward._kernel.spectrum_kernel`, computed plainly."""
-    tables = _Tables(tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale)
+    tables = _Tables(tab_e0_keV, tab_step_keV, S, dS, d2S, W, dW, stopping_scale,
+                     stopping_slope, slope_reference_keV, straggling_scale)
     n_slices, n_species = fractions.shape
     n_iso = iso_k.size
     n_ch = edges_keV.size - 1

@@ -13,7 +13,8 @@ import pytest
 from scipy.special import ndtr
 
 import forward
-from forward._kernel import broadening_table, spectrum_kernel, step_integral_table_eval
+from forward._kernel import (KernelInputs, broadening_table, spectrum_kernel,
+                             step_integral_table_eval)
 from forward._path import Slab, detected_energy
 from forward._straggling import straggling_rate
 
@@ -73,12 +74,12 @@ substrate = true
 """
 
 
-def _compare(model, fractions, nuisance=None):
+def _compare(model, fractions, nuisance=None, widths_1e15=None):
     for per_species, per_isotope in ((False, False), (True, False), (False, True)):
-        args = model.kernel_arguments(fractions, nuisance, per_species=per_species,
-                                      per_isotope=per_isotope)
-        fast = spectrum_kernel(*args)
-        slow = spectrum_kernel_reference(*args)
+        inputs = model.kernel_inputs(fractions, nuisance, widths_1e15=widths_1e15,
+                                     per_species=per_species, per_isotope=per_isotope)
+        fast = spectrum_kernel(*inputs)
+        slow = spectrum_kernel_reference(*inputs)
         big = slow > 1.0
         assert big.sum() > 50
         rel = np.abs(fast[big] - slow[big]) / slow[big]
@@ -120,6 +121,45 @@ def test_kernel_matches_reference_with_changed_nuisance():
     _compare(model, model.layer_fractions(), nu)
 
 
+def test_kernel_matches_reference_with_straggling_scale_and_stopping_slopes():
+    model = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
+    nu = model.default_nuisance()
+    nu.straggling_scale = 1.7
+    nu.stopping_scale = np.array([1.03, 0.98, 1.01, 0.97, 1.02])[: len(model.elements)]
+    nu.stopping_slope = np.array([0.08, -0.06, 0.12, -0.1, 0.05])[: len(model.elements)]
+    _compare(model, model.layer_fractions(), nu)
+    nu.straggling_scale = 0.0  # no straggling at all: detector resolution alone
+    _compare(model, model.layer_fractions(), nu)
+
+
+def test_kernel_matches_reference_on_a_grid_of_the_callers_own():
+    # a grid that follows thinner and thicker layers than the run file's, and a coarse grid of
+    # arbitrary widths with random fractions (any row count)
+    model = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
+    for t in ((180.0, 520.0), (330.0, 250.0)):
+        grid = model.sample_grid(t)
+        _compare(model, model.layer_fractions(grid), widths_1e15=grid.widths_1e15)
+    rng = np.random.default_rng(5)
+    widths = rng.uniform(5.0, 40.0, size=137)
+    fr = rng.uniform(0.0, 1.0, size=(137, len(model.species)))
+    _compare(model, fr, widths_1e15=widths)
+
+
+def test_kernel_inputs_are_named_like_the_kernel_and_the_reference():
+    # bookkeeping: the named inputs are the kernel's and the reference's arguments, in order
+    import inspect
+
+    kernel_names = tuple(inspect.signature(spectrum_kernel.py_func).parameters)
+    reference_names = tuple(inspect.signature(spectrum_kernel_reference).parameters)
+    assert KernelInputs._fields == kernel_names == reference_names
+    model = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
+    inputs = model.kernel_inputs(model.layer_fractions(), per_species=True)
+    assert isinstance(inputs, KernelInputs)
+    assert inputs.widths_1e15 is model.grid.widths_1e15
+    assert inputs.rows_mode == 1 and inputs.straggling_scale == 1.0
+    assert not inputs.stopping_slope.any() and inputs.slope_reference_keV == 1000.0
+
+
 # ----------------------------------------------------------------------------------------------
 # tables against the direct formulas
 
@@ -133,9 +173,10 @@ def test_stopping_and_straggling_tables_interpolate_within_bounds():
     for i, sym in enumerate(model.elements):
         comp = np.zeros(len(model.elements))
         comp[i] = 1.0
-        args = model.kernel_arguments(model.layer_fractions())
+        inp = model.kernel_inputs(model.layer_fractions())
         from reference_model import _Tables  # the same interpolation the kernel uses
-        tab = _Tables(args[4], args[5], *args[6:12])
+        tab = _Tables(inp.tab_e0_keV, inp.tab_step_keV, inp.S, inp.dS, inp.d2S, inp.W, inp.dW,
+                      inp.stopping_scale)
         s, _, _, w, _ = tab.mixture(energies, comp)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -351,9 +392,30 @@ def test_grid_respects_slice_rule_and_layer_boundaries():
 def test_nuisance_round_trip():
     model = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
     nu = model.default_nuisance()
-    back = forward.Nuisance.from_array(nu.to_array())
-    assert np.array_equal(back.to_array(), nu.to_array())
-    assert len(forward.Nuisance.array_names(model.elements)) == nu.to_array().size
+    n = len(model.elements)
+    nu.straggling_scale = 1.3
+    nu.stopping_slope = np.linspace(-0.1, 0.1, n)
+    arr = nu.to_array()
+    names = forward.Nuisance.array_names(model.elements)
+    assert arr.size == 6 + 2 * n == len(names)
+    # layout: the five scalars, the scales, the straggling scale, the slopes
+    assert names[5:5 + n] == [f"stopping_scale_{e}" for e in model.elements]
+    assert names[5 + n] == "straggling_scale" and arr[5 + n] == 1.3
+    assert names[6 + n:] == [f"stopping_slope_{e}" for e in model.elements]
+    for back in (forward.Nuisance.from_array(arr), forward.Nuisance.from_array(arr, n)):
+        assert np.array_equal(back.to_array(), arr)
+    # the older layout (5 + n values) still reads, with straggling scale 1 and no slopes
+    old = forward.Nuisance.from_array(arr[:5 + n], n_elements=n)
+    assert old.straggling_scale == 1.0 and np.array_equal(old.stopping_scale, nu.stopping_scale)
+    assert np.array_equal(old.to_array()[6 + n:], np.zeros(n))
+    with pytest.raises(ValueError, match="n_elements"):
+        forward.Nuisance.from_array(arr[:-1])
+    # a nuisance made without slopes (empty array) means no tilt
+    plain = forward.Nuisance(*arr[:5], nu.stopping_scale)
+    assert plain.stopping_slope.size == 0 and plain.straggling_scale == 1.0
+    np.testing.assert_array_equal(model.expected_counts(model.layer_fractions(), plain),
+                                  model.expected_counts(model.layer_fractions(),
+                                                        model.default_nuisance()))
 
 
 def test_depth_map_runs_from_surface_edge_down():

@@ -18,8 +18,9 @@ from scipy.integrate import RK45, solve_ivp
 from scipy.optimize import brentq
 
 from forward import InputError
+from forward._ode import _A, _B4, _B5, _E
 from forward._path import (
-    _A, _B4, _B5, _E, Slab, detected_energy, energy_after_path, mean_energy_stopping_factor,
+    Slab, detected_energy, energy_after_path, mean_energy_stopping_factor,
     path_to_energy, stopping_cross_section_factor,
 )
 
@@ -365,3 +366,16 @@ def test_round_trip_path_to_energy_and_back(e0, fraction, angle, symbol):
     n = path_to_energy(stopping, e0, e1, angle)
     back = energy_after_path(stopping, e0, n, angle, tol_keV=1e-7)
     assert back == pytest.approx(e1, rel=1e-6)
+
+
+def test_path_and_straggling_import_without_a_cycle():
+    # Module structure: the shared integrator lives in forward._ode; forward._straggling needs
+    # neither forward._path nor anything that imports it, so importing it alone (in a fresh
+    # interpreter) must not load forward._path.
+    import subprocess
+    import sys
+
+    code = ("import sys, forward._straggling; "
+            "print('forward._path' in sys.modules, 'forward._ode' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["False", "True"]

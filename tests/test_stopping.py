@@ -45,8 +45,8 @@ ELEMENT_TOLERANCE = {
     "Ar_gas": (0.005, 0.050),       # 0.38 % at 1 MeV; 4.5 % at 2.75 MeV
     "Au": (0.120, 0.050),           # 10.7 % at 0.1 MeV (known to differ); 4.4 % at 1.75 MeV
     "Be": (0.002, 0.135),           # 0.03 %; 12.5 % at 3 MeV (largest of all; grows with E)
-    "C_amorphous": (0.100, 0.060),  # 8.9 % at 0.35 MeV (ASTAR's amorphous C differs from
-                                    # graphite; our one carbon entry follows graphite); 5.3 % at 1 MeV
+    "C_amorphous": (0.002, 0.050),  # with the amorphous-carbon coefficients (ICRU 49):
+                                    # 0.03 %; 4.6 % at 3 MeV (graphite's would be off by 8.9 %)
     "C_graphite": (0.002, 0.015),   # 0.03 %; 1.1 % at 3 MeV
     "Cu": (0.002, 0.010),           # 0.01 %; 0.5 % at 3 MeV
     "Fe": (0.002, 0.010),           # 0.02 %; 0.75 % at 3 MeV
@@ -88,6 +88,11 @@ def _astar_material(name: str):
     return rows[0]["formula"], int(rows[0]["atoms_per_formula_unit"]), energy_keV, per_atom
 
 
+def _phase(material: str) -> str:
+    """Our carbon phase for an ASTAR material name (graphite unless it is amorphous carbon)."""
+    return "amorphous" if material == "C_amorphous" else "graphite"
+
+
 def _band(energy_keV, band):
     return (energy_keV >= band[0]) & (energy_keV <= band[1])
 
@@ -107,7 +112,7 @@ def test_electronic_stopping_matches_astar(material):
     formula, atoms, energy_keV, reference = _astar_material(material)
     assert atoms == 1
     z2 = getattr(periodictable, formula).number
-    ours = helium_electronic_stopping(z2, energy_keV)
+    ours = helium_electronic_stopping(z2, energy_keV, carbon=_phase(material))
     deviation = np.abs(ours / reference - 1.0)
     tol_low, tol_high = ELEMENT_TOLERANCE[material]
     low, high = _band(energy_keV, LOW_BAND_KEV), _band(energy_keV, HIGH_BAND_KEV)
@@ -116,6 +121,33 @@ def test_electronic_stopping_matches_astar(material):
     assert deviation[low].max() < tol_low, energy_keV[low][np.argmax(deviation[low])]
     # ASTAR (NIST SRD 124, ICRU 49), 1-3 MeV
     assert deviation[high].max() < tol_high, energy_keV[high][np.argmax(deviation[high])]
+
+
+@pytest.mark.parametrize("phase, material, other", [("graphite", "C_graphite", "C_amorphous"),
+                                                     ("amorphous", "C_amorphous", "C_graphite")])
+def test_both_carbon_phases_against_astar(phase, material, other):
+    # ASTAR (NIST SRD 124, implementing ICRU Report 49) tabulates graphite and amorphous carbon
+    # separately; ICRU 49 gives each its own helium coefficients.  Each of our two coefficient
+    # rows reproduces its own phase to 0.1 % at 0.1-1 MeV (measured 0.03 % for both) and misses
+    # the other phase by several per cent (measured 8.1-8.9 % at 350 keV), so the choice matters.
+    _, _, energy_keV, reference = _astar_material(material)
+    _, _, _, reference_other = _astar_material(other)
+    low = _band(energy_keV, LOW_BAND_KEV)
+    ours = helium_electronic_stopping(6, energy_keV[low], carbon=phase)
+    assert np.max(np.abs(ours / reference[low] - 1.0)) < 0.001
+    assert np.max(np.abs(ours / reference_other[low] - 1.0)) > 0.05
+    # the same through the stopping model and the public function
+    model = StoppingModel("4He", nuclear=False, carbon=phase)
+    np.testing.assert_array_equal(model.electronic("C", energy_keV[low]), ours)
+    np.testing.assert_array_equal(stopping("4He", "C", energy_keV[low], nuclear=False,
+                                           carbon=phase), ours)
+
+
+def test_unknown_carbon_phase_is_an_input_error():
+    with pytest.raises(forward.InputError, match="'graphite', 'amorphous'"):
+        StoppingModel("4He", carbon="diamond")
+    with pytest.raises(forward.InputError, match="unknown carbon phase"):
+        helium_electronic_stopping(6, 1000.0, carbon="glassy")
 
 
 def test_most_elements_agree_to_a_tenth_of_a_percent_below_1_MeV():
@@ -143,13 +175,14 @@ def test_bragg_rule_for_oxides_against_astar(compound):
 
 def test_spread_over_elements_in_the_rbs_band():
     # ASTAR: the element-to-element rms deviation at 1-2.5 MeV that sizes the stopping-scale
-    # nuisance prior; measured 2.2 % (docs/stopping_vs_astar.md).
+    # nuisance prior; measured 2.16 % (docs/stopping_vs_astar.md).
     rms = []
     for material in ELEMENT_TOLERANCE:
         formula, _, energy_keV, reference = _astar_material(material)
         z2 = getattr(periodictable, formula).number
         sel = _band(energy_keV, (1000.0, 2500.0))
-        dev = helium_electronic_stopping(z2, energy_keV[sel]) / reference[sel] - 1.0
+        ours = helium_electronic_stopping(z2, energy_keV[sel], carbon=_phase(material))
+        dev = ours / reference[sel] - 1.0
         rms.append(np.sqrt(np.mean(dev ** 2)))
     spread = float(np.sqrt(np.mean(np.square(rms))))
     assert 0.01 < spread < 0.03
@@ -479,3 +512,96 @@ def test_range_warning_above_the_validated_energy():
 def test_table_object_validates_its_arrays():
     with pytest.raises(forward.InputError, match="strictly increasing"):
         StoppingTable(np.array([2.0, 1.0]), np.array([1.0, 1.0]), source="mem")
+
+
+# --------------------------------------------------------------------------------------------
+# recommended prior widths of the stopping nuisances
+# --------------------------------------------------------------------------------------------
+
+def _width_table_from_refdata():
+    """Rows recomputed from ASTAR by the benchmark that wrote the widths file."""
+    read_refdata(ASTAR_FILE)  # skips when the reference data is absent
+    import importlib.util
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "benchmarks" / "stopping_vs_astar.py"
+    spec = importlib.util.spec_from_file_location("stopping_vs_astar", path)
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    return bench.uncertainty_rows(bench.read_astar())[0]
+
+
+def test_width_table_is_up_to_date_with_the_measured_deviations():
+    # ASTAR (NIST SRD 124, ICRU 49): the stored widths are what benchmarks/stopping_vs_astar.py
+    # measures now (5 decimals stored); a change of the coefficients must regenerate them
+    fresh = {(r["symbol"], r["phase"]): r for r in _width_table_from_refdata()}
+    stored = stp._uncertainty_rows()
+    assert len(stored) == len(fresh)
+    for row in stored:
+        new = fresh[(row["symbol"], row["phase"])]
+        assert row["scale_sd"] == pytest.approx(new["scale_sd"], abs=1e-5)
+        assert row["slope_sd"] == pytest.approx(new["slope_sd"], abs=1e-5)
+
+
+@pytest.mark.parametrize("material", sorted(ELEMENT_TOLERANCE))
+def test_prior_widths_cover_astar_at_every_energy(material):
+    # ASTAR (NIST SRD 124, ICRU 49): with scale ~ N(1, scale_sd) and slope ~ N(0, slope_sd),
+    # ln(S_ASTAR / S_ours) at energy E lies within 2 standard deviations of the prior,
+    # sqrt(scale_sd^2 + (slope_sd ln(E/1000 keV))^2), at every tabulated energy of the band
+    # (measured worst case 1.9, Be at 3 MeV)
+    formula, _, energy_keV, reference = _astar_material(material)
+    z2 = getattr(periodictable, formula).number
+    sel = _band(energy_keV, stp.UNCERTAINTY_BAND_KEV)
+    e = energy_keV[sel]
+    ours = helium_electronic_stopping(z2, e, carbon=_phase(material))
+    scale_sd, slope_sd = stp.stopping_uncertainty(formula, carbon=_phase(material))
+    sd = np.sqrt(scale_sd ** 2 + (slope_sd * np.log(e / 1000.0)) ** 2)
+    assert np.max(np.abs(np.log(reference[sel] / ours)) / sd) < 2.0
+
+
+def test_oxygen_in_oxides_gets_the_bragg_rule_failure_as_width():
+    # ASTAR (NIST SRD 124, ICRU 49) SiO2 and Al2O3 against Bragg's rule with our elements, the
+    # difference laid on oxygen: at 1 MeV and at 400 keV the oxide prior must reach the
+    # compound values within 2 sd (measured: compounds 4-20 % below Bragg's rule)
+    scale_sd, slope_sd = stp.stopping_uncertainty("O", oxide=True)
+    assert scale_sd > 5 * stp.stopping_uncertainty("O")[0]
+    model = StoppingModel("4He", nuclear=False)
+    for compound in ("SiO2", "Al2O3"):
+        formula, _, energy_keV, reference = _astar_material(compound)
+        fractions = forward.parse_formula(formula)
+        for e in (400.0, 1000.0):
+            ref = np.interp(np.log(e), np.log(energy_keV), np.log(reference))
+            others = sum(f * model.electronic(s, e) for s, f in fractions.items() if s != "O")
+            bound = (np.exp(ref) - others) / fractions["O"]
+            sd = math.hypot(scale_sd, slope_sd * math.log(e / 1000.0))
+            assert abs(math.log(bound / model.electronic("O", e))) < 2 * sd
+
+
+def test_prior_widths_are_wider_where_the_coefficient_form_departs():
+    # from the measured deviations (docs/stopping_vs_astar.md): Si and Au differ by up to 10 %
+    # below 1 MeV, Be by 12.5 % at 3 MeV; elements without an ASTAR entry get the width of
+    # their class, wider for Z >= 55 and Be, C, N, O (ICRU Report 49 leaves the coefficient
+    # form above about 1 MeV there)
+    cu = stp.stopping_uncertainty("Cu")
+    for symbol in ("Si", "Au", "Be"):
+        assert stp.stopping_uncertainty(symbol)[0] > 2 * cu[0]
+    heavy = [stp.stopping_uncertainty(s) for s in ("Hf", "Ta", "Bi")]
+    light = [stp.stopping_uncertainty(s) for s in ("Ni", "Co", "Cr")]
+    assert heavy[0] == heavy[1] == heavy[2] and light[0] == light[1] == light[2]
+    assert heavy[0][0] > light[0][0] and heavy[0][1] > light[0][1]
+    assert 0.015 < light[0][0] < heavy[0][0] < 0.05
+    # 3He: the 4He widths (equal velocity); amorphous carbon has its own
+    assert stp.stopping_uncertainty("Si", "3He") == stp.stopping_uncertainty("Si")
+    assert stp.stopping_uncertainty("C", carbon="amorphous") != stp.stopping_uncertainty("C")
+    assert forward.stopping_uncertainty is stp.stopping_uncertainty
+
+
+@pytest.mark.parametrize("call, match", [
+    (lambda: stp.stopping_uncertainty("Si", "1H"), "proton|ion"),
+    (lambda: stp.stopping_uncertainty("Si", oxide=True), "oxygen only"),
+    (lambda: stp.stopping_uncertainty("Xx"), "Xx"),
+    (lambda: stp.stopping_uncertainty("C", carbon="diamond"), "carbon phase"),
+])
+def test_prior_width_bad_input(call, match):
+    with pytest.raises(forward.InputError, match=match):
+        call()
