@@ -5,7 +5,8 @@
 per-element and per-isotope tables on one uniform energy grid; then
 :meth:`ForwardModel.expected_counts` evaluates the kernel of :mod:`forward._kernel` on a
 ``(n_slices, n_species)`` table of atom fractions with the calibration, resolution, fluence and
-stopping scales of a :class:`Nuisance`.
+stopping scales of a :class:`Nuisance`.  Kept whole: species, tables, slice grid and the
+kernel's argument list are the set-up of one object and change together.
 
 Tables
 ------

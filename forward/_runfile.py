@@ -4,6 +4,8 @@ The schema is documented key by key in README.md, "The run file".  This module r
 :mod:`tomllib`, checks every value and builds frozen dataclasses.  Every problem raises
 :class:`forward.InputError` with ``where="<file>: <dotted key>"``, e.g.
 ``run.toml: layer[2].areal_density_1e15`` (layers are counted from 1, top layer first).
+Kept whole: one file format read by one set of table helpers with one way of naming where a
+problem is; split, the checks of one table would end up in several places.
 
 Geometry conventions (angles in degrees, measured from the sample normal):
 

@@ -30,6 +30,9 @@ from scipy.stats import gaussian_kde
 
 from forward import InputError
 
+from ..results._schema import QUANTILES
+from ..results._summary import summarise
+
 __all__ = [
     "BOLTZMANN_eV_PER_K",
     "NM2_TO_CM2",
@@ -48,9 +51,6 @@ BOLTZMANN_eV_PER_K = constants.physical_constants["Boltzmann constant in eV/K"][
 #: 1 nm^2 = 1e-14 cm^2: multiply D in nm^2/s by this to get cm^2/s.
 NM2_TO_CM2 = 1e-14
 
-_QUANTILES = (0.025, 0.16, 0.5, 0.84, 0.975)
-
-
 def interval(draws) -> dict:
     """Median and central 68 % and 95 % intervals of a set of draws.
 
@@ -62,16 +62,14 @@ def interval(draws) -> dict:
     Returns
     -------
     dict
-        ``median``, ``lo68``, ``hi68``, ``lo95``, ``hi95``, ``mean``, ``sd``, as floats.
+        ``median``, ``mean``, ``sd``, ``low68``, ``high68``, ``low95``, ``high95``, as floats
+        (:func:`inversion.results._summary.summarise`).
     """
     x = np.asarray(draws, dtype=float).ravel()
     if x.size == 0 or not np.all(np.isfinite(x)):
         raise InputError("draws must be a non-empty array of finite numbers; got "
                          f"{x.size} values, {int(np.sum(~np.isfinite(x)))} not finite")
-    q = np.quantile(x, _QUANTILES)
-    return {"median": float(q[2]), "lo68": float(q[1]), "hi68": float(q[3]),
-            "lo95": float(q[0]), "hi95": float(q[4]), "mean": float(x.mean()),
-            "sd": float(x.std(ddof=1)) if x.size > 1 else 0.0}
+    return summarise(x)
 
 
 def _as_draws(values, name: str) -> np.ndarray:
@@ -278,7 +276,7 @@ class ArrheniusFit:
     summary: dict
     temperature_grid_K: np.ndarray
     band_ln_d: np.ndarray
-    band_quantiles: tuple = _QUANTILES
+    band_quantiles: tuple = QUANTILES
     diagnostics: dict = field(default_factory=dict)
 
 
@@ -398,10 +396,8 @@ def arrhenius_fit(temperatures_K, d_draws_list, *, scatter: bool = False,
     sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
     sampler.run_mcmc(start, n_steps, progress=False)
     chain = sampler.get_chain(discard=burn, flat=True)
-    try:
-        tau = sampler.get_autocorr_time(discard=burn, quiet=True, tol=0)
-    except Exception:  # pragma: no cover - emcee raises only on degenerate chains
-        tau = np.full(ndim, np.nan)
+    # quiet and without a tolerance: never raises; a degenerate chain gives NaN
+    tau = sampler.get_autocorr_time(discard=burn, quiet=True, tol=0)
 
     ea = chain[:, 0]
     ln_d0 = chain[:, 1] + ea * x_ref
@@ -419,7 +415,7 @@ def arrhenius_fit(temperatures_K, d_draws_list, *, scatter: bool = False,
     sub = chain if chain.shape[0] <= 4000 else chain[rng.choice(chain.shape[0], 4000, False)]
     line = (sub[:, 1][:, None] + sub[:, 0][:, None] * x_ref
             - sub[:, 0][:, None] / (BOLTZMANN_eV_PER_K * grid[None, :]))
-    band = np.quantile(line, _QUANTILES, axis=0)
+    band = np.quantile(line, QUANTILES, axis=0)
     diag = {"n_walkers": n_walkers, "n_steps": n_steps, "burn": burn,
             "acceptance_fraction": float(np.mean(sampler.acceptance_fraction)),
             "autocorr_time": [float(t) for t in tau],
@@ -496,7 +492,7 @@ def compare_neighbours(labels, draws_list, *, seed: int = 0) -> list[dict]:
     Returns
     -------
     list of dict
-        One row per neighbouring pair: ``a``, ``b``, ``median``, ``lo95``, ``hi95``,
+        One row per neighbouring pair: ``a``, ``b``, ``median``, ``low95``, ``high95``,
         ``p_a_greater``.
     """
     if len(labels) != len(draws_list):
@@ -505,6 +501,6 @@ def compare_neighbours(labels, draws_list, *, seed: int = 0) -> list[dict]:
     for k in range(len(labels) - 1):
         c = compare(draws_list[k + 1], draws_list[k], seed=seed + k)
         rows.append({"a": str(labels[k + 1]), "b": str(labels[k]),
-                     "median": c.summary["median"], "lo95": c.summary["lo95"],
-                     "hi95": c.summary["hi95"], "p_a_greater": c.p_a_greater})
+                     "median": c.summary["median"], "low95": c.summary["low95"],
+                     "high95": c.summary["high95"], "p_a_greater": c.p_a_greater})
     return rows

@@ -1,11 +1,11 @@
-"""The ``sondage`` command line.
+"""The ``sondage`` command line: argument parsing only; the work is the library's.
 
-Each command lives in its own module ``inversion/_cmd_<name>.py`` that defines
+Each command lives in its own module ``inversion/cli/_<name>.py`` that defines
 
 * ``HELP``: one line for the command list,
 * ``DESCRIPTION``: a paragraph with usage examples,
 * ``add_arguments(parser)``: its options,
-* ``run(args) -> int``: the work, returning the exit code.
+* ``run(args) -> int``: calls the library with the parsed arguments, returns the exit code.
 
 Commands whose module is present are registered; the others are simply absent, so a command is
 added by adding its module.  Exit codes: 0 success, 1 internal error, 2 bad input (run file,
@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import importlib.metadata
 import importlib.util
 import logging
 import sys
@@ -25,24 +24,18 @@ import warnings
 
 __all__ = ["main", "build_parser", "COMMANDS", "PROGRAM"]
 
-PROGRAM = "sondage"
-#: Command names in the order they are listed; each maps to ``inversion._cmd_<name>``.
+from .._about import PROGRAM, version
+
+#: Command names in the order they are listed; each maps to ``inversion.cli._<name>``.
 COMMANDS = ["check", "simulate", "invert", "report", "series", "demo"]
 
 log = logging.getLogger("sondage")
 
 
-def _version() -> str:
-    try:
-        return importlib.metadata.version("sondage")
-    except importlib.metadata.PackageNotFoundError:
-        return "unknown (not installed)"
-
-
 def _available_commands():
     """(name, module) for each command whose module exists."""
     for name in COMMANDS:
-        module_name = f"{__package__ or 'inversion'}._cmd_{name}"
+        module_name = f"{__name__}._{name}"
         if importlib.util.find_spec(module_name) is not None:
             yield name, importlib.import_module(module_name)
 
@@ -55,7 +48,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "profiles with error bars.",
         epilog=f"Run '{PROGRAM} COMMAND --help' for the options of one command.",
     )
-    parser.add_argument("--version", action="version", version=f"{PROGRAM} {_version()}")
+    parser.add_argument("--version", action="version", version=f"{PROGRAM} {version('unknown (not installed)')}")
     chatter = parser.add_mutually_exclusive_group()
     chatter.add_argument("-q", "--quiet", action="store_true",
                          help="print only warnings and errors")
@@ -148,7 +141,3 @@ def main(argv=None) -> int:
         print(f"{PROGRAM}: internal error: {text} (run with --debug for the traceback)",
               file=sys.stderr)
         return 1
-
-
-if __name__ == "__main__":  # pragma: no cover
-    raise SystemExit(main())

@@ -1,6 +1,6 @@
 """``sondage series``: invert every spectrum of an annealing series and fit the Arrhenius law.
 
-The series file names a run-file template and the members (see :mod:`inversion._series` and
+The series file names a run-file template and the members (see :mod:`inversion.series` and
 README.md, "Annealing series").  Members are inverted on dask.distributed, by default on a local cluster of
 worker processes; each member keeps its own resumable result file beside the series file.
 """
@@ -55,7 +55,8 @@ def run(args) -> int:
     """Run the series; return 0 (bad input raises InputError)."""
     from forward import InputError
 
-    from ._series import load_series, run_series
+    from ..series._file import load_series
+    from ..series._runner import run_series
 
     if args.resume and args.force:
         raise InputError("give --resume or --force, not both", where="--force")
@@ -65,6 +66,9 @@ def run(args) -> int:
     if args.scheduler and not args.scheduler.startswith(("tcp://", "tls://", "inproc://")):
         raise InputError(f"scheduler address {args.scheduler!r} needs a protocol; e.g. "
                          "tcp://127.0.0.1:8786", where="--scheduler")
+    import matplotlib
+
+    matplotlib.use("Agg")  # the series report is drawn to files only
     series = load_series(args.series_file)
     out = run_series(series, Path(args.output), scheduler=args.scheduler, workers=args.workers,
                      resume=args.resume, force=args.force, seed=args.seed,

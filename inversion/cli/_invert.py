@@ -1,17 +1,13 @@
-"""``sondage invert``: sample the posterior of a run's free parameters given a spectrum."""
+"""``sondage invert``: sample the posterior of a run's free parameters given a spectrum
+(:func:`inversion.invert`)."""
 
 from __future__ import annotations
 
-import os
 import shlex
-import sys
-import warnings
 
-__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run", "summary_table", "DEFAULT_WORKERS"]
+from ..sample._workers import DEFAULT_WORKERS
 
-#: Two processes ran the 10-parameter layer benchmark 1.5x faster than one on this 2-core
-#: machine (benchmarks/RESULTS.md, "Inversion"), with identical samples.
-DEFAULT_WORKERS = min(2, os.cpu_count() or 1)
+__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run"]
 
 HELP = "sample the depth-profile posterior of a spectrum into an HDF5 result file"
 
@@ -54,28 +50,10 @@ def add_arguments(parser) -> None:
                       help="replace an existing result file")
 
 
-def _fmt(x: float) -> str:
-    return f"{x:.4g}" if abs(x) < 1e5 else f"{x:.3e}"
-
-
-def summary_table(result) -> str:
-    """Median and 68 % interval of each layer thickness and interface mixing width."""
-    rows = []
-    for name, s in result.summary.items():
-        if name.endswith((".thickness_nm", ".areal_density", ".mixing", ".mixing_nm")):
-            rows.append((name, s.get("unit", ""), s["median"], s["low68"], s["high68"]))
-    if not rows:
-        return ""
-    width = max(len(r[0]) for r in rows)
-    lines = [f"{'quantity':<{width}}  {'median':>10}  {'68 % interval':>23}  unit"]
-    for name, unit, med, lo, hi in rows:
-        lines.append(f"{name:<{width}}  {_fmt(med):>10}  "
-                     f"{'[' + _fmt(lo) + ', ' + _fmt(hi) + ']':>23}  {unit}")
-    return "\n".join(lines)
-
-
 def run(args) -> int:
-    from ._api import NotConvergedWarning, invert
+    """Invert, print the summary (and, even with --quiet, a loud not-converged warning);
+    return 0, or 130 when the run was interrupted."""
+    from .._api import invert_reporting
 
     command = "sondage invert " + " ".join(
         shlex.quote(a) for a in [args.run_file, args.spectrum, "-o", args.output]
@@ -83,29 +61,8 @@ def run(args) -> int:
         + (["--max-steps", str(args.max_steps)] if args.max_steps is not None else [])
         + ["--workers", str(args.workers)]
         + (["--resume"] if args.resume else []) + (["--force"] if args.force else []))
-    quiet = bool(getattr(args, "quiet", False))
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", NotConvergedWarning)
-        result = invert(args.run_file, args.spectrum, args.output, seed=args.seed,
-                        max_steps=args.max_steps, resume=args.resume, force=args.force,
-                        workers=args.workers, progress=not quiet, command=command)
-    for w in caught:
-        if not issubclass(w.category, NotConvergedWarning):
-            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
-    table = summary_table(result)
-    if table and not quiet:
-        print(table)
-    diag = result.diagnostics
-    steps = int(diag.get("steps", 0))
-    if not quiet:
-        print(f"{steps} steps x {int(diag.get('walkers', 0))} walkers, mean acceptance "
-              f"{float(diag.get('mean_acceptance', float('nan'))):.2f}; result in {args.output}")
-    # convergence is reported on every run, loudly, even with --quiet
-    for w in caught:
-        if issubclass(w.category, NotConvergedWarning):
-            text = " ".join(str(w.message).split())
-            bar = "!" * 78
-            print(f"{bar}\nsondage: WARNING: {text}\n{bar}", file=sys.stderr)
-    if bool(diag.get("interrupted", False)):
-        return 130
-    return 0
+    result = invert_reporting(args.run_file, args.spectrum, args.output, seed=args.seed,
+                              max_steps=args.max_steps, resume=args.resume, force=args.force,
+                              workers=args.workers, command=command,
+                              quiet=bool(getattr(args, "quiet", False)))
+    return 130 if bool(result.diagnostics.get("interrupted", False)) else 0

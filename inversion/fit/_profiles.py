@@ -19,7 +19,7 @@ import math
 import numpy as np
 from scipy.special import ndtr
 
-__all__ = ["step_average", "LayerStack", "NodeProfile", "alr_to_fractions"]
+__all__ = ["step_average", "LayerStack", "NodeProfile", "alr_to_fractions", "stick_breaking"]
 
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
@@ -230,3 +230,14 @@ class NodeProfile:
         if self.below == "vacuum":
             out *= self._coverage[:, None]
         return out
+
+
+def stick_breaking(shares):
+    """Stick-breaking shares ``v`` (length m - 1, each in (0, 1)) to m fractions.
+
+    ``f_1 = v_1``, ``f_k = v_k (1 - v_1) ... (1 - v_{k-1})``, ``f_m = (1 - v_1) ... (1 - v_{m-1})``
+    (README.md, "Free compositions").
+    """
+    v = np.asarray(shares, dtype=float)
+    rest = np.concatenate([[1.0], np.cumprod(1.0 - v)])
+    return np.concatenate([v, [1.0]]) * rest

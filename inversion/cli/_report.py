@@ -1,4 +1,5 @@
-"""``sondage report``: figures and summaries of a finished (or interrupted) inversion.
+"""``sondage report``: figures and summaries of a finished (or interrupted) inversion
+(:func:`inversion.build_report`).
 
 Reads one HDF5 result file and writes, into one folder, the spectrum figure (measured counts,
 posterior predictive bands, each species' contribution, residuals), the depth-profile figure
@@ -10,14 +11,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run", "report_file_names"]
-
-
-def report_file_names(formats) -> list[str]:
-    """Names of the files a report writes into its folder."""
-    figures = [f"{name}.{fmt}" for name in ("spectrum", "profile", "corner", "convergence")
-               for fmt in formats]
-    return figures + ["summary.csv", "summary.md"]
+__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run"]
 
 HELP = "draw the figures and write the summary tables of a result file"
 
@@ -64,18 +58,12 @@ def run(args) -> int:
     import matplotlib
 
     matplotlib.use("Agg")  # files only: never open a window, whatever the environment
-    from ._report import format_summary_text, read_report_data, write_report
-
-    from ._outputs import check_output
+    from ..report._build import write_report
+    from ..report._data import read_report_data
+    from ..report._tables import format_summary_text
 
     data = read_report_data(args.result)
-    folder = Path(args.output) if args.output is not None else \
-        data.path.with_name(f"{data.path.stem}_report")
-    if folder.is_dir():
-        for name in report_file_names(("png", args.format)):
-            check_output(folder / name, inputs={"result file": args.result}, force=args.force,
-                         kind="report file")
-    written = write_report(data, folder, formats=("png", args.format))
+    written = write_report(data, args.output, formats=("png", args.format), force=args.force)
     print(format_summary_text(data, compact=True))
     folder = Path(next(iter(written.values()))).parent
     print(f"wrote {len(written)} files to {folder}/: "
