@@ -5,14 +5,7 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
-import forward
 from forward import InputError
-
-from ._api import invert
-from .report._build import write_report
-from .report._data import read_report_data
-from .report._tables import format_summary_text, interval_table
-from .sample._workers import DEFAULT_WORKERS
 
 __all__ = ["run_demo", "demo_folder", "DEMO_MAX_STEPS"]
 
@@ -53,6 +46,14 @@ def run_demo(output="demo-output", *, max_steps: int = DEMO_MAX_STEPS, seed: int
     dict
         Name -> path of the report's files.
     """
+    import forward
+
+    from ._api import invert
+    from .report._build import write_report
+    from .report._data import read_report_data
+    from .report._tables import format_summary_text, interval_table
+    from .sample._workers import DEFAULT_WORKERS
+
     quiet = bool(quiet)
     say = (lambda *a, **k: None) if quiet else print
     if max_steps < 1:

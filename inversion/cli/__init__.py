@@ -48,7 +48,8 @@ def build_parser() -> argparse.ArgumentParser:
                     "profiles with error bars.",
         epilog=f"Run '{PROGRAM} COMMAND --help' for the options of one command.",
     )
-    parser.add_argument("--version", action="version", version=f"{PROGRAM} {version('unknown (not installed)')}")
+    parser.add_argument("--version", action="version",
+                        version=f"{PROGRAM} {version('unknown (not installed)')}")
     chatter = parser.add_mutually_exclusive_group()
     chatter.add_argument("-q", "--quiet", action="store_true",
                          help="print only warnings and errors")

@@ -1,8 +1,9 @@
 """``sondage series``: invert every spectrum of an annealing series and fit the Arrhenius law.
 
 The series file names a run-file template and the members (see :mod:`inversion.series` and
-README.md, "Annealing series").  Members are inverted on dask.distributed, by default on a local cluster of
-worker processes; each member keeps its own resumable result file beside the series file.
+README.md, "Annealing series").  Members are inverted on dask.distributed, by default on a
+local cluster of worker processes; each member keeps its own resumable result file beside the
+series file.
 """
 
 from __future__ import annotations

@@ -19,7 +19,6 @@ from forward import InputError
 
 from ..results._outputs import WriterLock, check_output, spectrum_file
 from ..results._store import read_head
-from ._figures import series_report
 from ._file import Series, interface_names, member_path, member_run
 from ._seriesfile import set_series_attrs, write_members, write_statistics
 from ._statistics import series_statistics
@@ -74,7 +73,6 @@ def invert_member(payload: dict) -> dict:
                force=state == "broken", progress=False,
                command=f"sondage series member {payload['label']}")
     return {"label": payload["label"], "path": str(out), "state": state}
-
 
 
 def _payloads(series: Series, output: Path, seed: int, max_steps):
@@ -222,5 +220,7 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
     set_series_attrs(output, wall_s_members=t_members,
                      wall_s_statistics=time.perf_counter() - t_start - t_members)
     if report:
+        from ._figures import series_report  # matplotlib only here, never on a worker
+
         series_report(output)
     return output
