@@ -160,3 +160,18 @@ def test_programming_errors_are_not_reported_as_damaged_files(result_path, monke
     monkeypatch.setattr(_result, "_result", bug)
     with pytest.raises(TypeError, match="a bug of ours"):
         read_result(result_path)
+
+
+def test_resuming_a_version_1_file_writes_it_in_this_version(toy, result_path, tmp_path):
+    old = tmp_path / "version1.h5"
+    old.write_bytes(result_path.read_bytes())
+    with h5py.File(old, "a") as f:
+        del f.attrs["format_version"]
+        del f["spectrum"].attrs["run_calibration_keV"]
+    run = toy.run(FIT)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotConvergedWarning)
+        res = invert(run, _counts(toy, run), old, resume=True, max_steps=80,
+                     build_model=toy.Builder(run), progress=False)
+    assert res.format_version == 2 and int(res.diagnostics["steps"]) == 80
+    assert "run_calibration_keV" in res.group_attrs["spectrum"]

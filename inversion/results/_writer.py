@@ -17,7 +17,7 @@ import numpy as np
 from forward import InputError
 
 from ._backend import SafeHDFBackend
-from ._schema import (DERIVED, DIAGNOSTICS, INTERVAL_NOTE, LOG_POSTERIOR, MCMC,
+from ._schema import (DERIVED, DIAGNOSTICS, FORMAT_VERSION, INTERVAL_NOTE, LOG_POSTERIOR, MCMC,
                       POSTERIOR_PRIORS, PROFILE, QUANTILES, SAMPLES, SPECTRUM, START, SUMMARY,
                       attrs_of)
 from ._store import (HDF5_ERRORS, damaged_message, has_same_input, now_text, read_mcmc_head,
@@ -99,7 +99,9 @@ def open_for_resume(path, *, run_text: str, counts, n_walkers: int, ndim: int,
         raise InputError("cannot resume: " + damaged_message(exc), where=str(path)) from exc
     if not backend.initialized:
         backend.reset(n_walkers, ndim)
-    set_attrs(path, command=command, resumed=now_text(), status="running")
+    # the final groups are written anew in this version's layout
+    set_attrs(path, command=command, resumed=now_text(), status="running",
+              format_version=FORMAT_VERSION)
     seed = root.get("seed")
     return backend, None if seed is None else int(seed)
 
