@@ -61,11 +61,11 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 import forward  # noqa: E402
-from inversion._api import NotConvergedWarning, invert, prepare  # noqa: E402
+from inversion import (NotConvergedWarning, Role, cramer_rao_sd, fisher_matrix,  # noqa: E402
+                       invert, nominal_theta, prepare)
 
-__all__ = ["run_text", "scenario_objective", "simulate_counts", "fisher_matrix",
-           "cramer_rao_sd", "run_replica", "coverage_summary",
-           "expected_coverage_given_draws", "main", "TRUTH", "QUANTITIES"]
+__all__ = ["run_text", "scenario_objective", "simulate_counts", "run_replica",
+           "coverage_summary", "expected_coverage_given_draws", "main", "TRUTH", "QUANTITIES"]
 
 #: the invented truth of the film (1e15 atoms/cm2)
 TRUTH = {"film.areal_density": 250.0, "film.mixing": 40.0}
@@ -160,21 +160,12 @@ def _strip_window(text: str) -> str:
 def truth_vector(objective, rng=None, nuisance_truth: str = "prior") -> np.ndarray:
     """The true parameter vector: film values from :data:`TRUTH`; nuisances at the run
     file's values (``"nominal"``) or drawn from their priors (``"prior"``, needs ``rng``)."""
-    default = objective.default_nuisance
-    theta = []
-    for p in objective.spec.parameters:
-        kind = p.role[0]
-        if p.name in TRUTH:
-            theta.append(TRUTH[p.name])
-        elif nuisance_truth == "prior" and kind in ("nuisance", "stopping"):
-            theta.append(float(p.prior.dist.rvs(random_state=rng)))
-        elif kind == "nuisance":
-            theta.append(float(getattr(default, p.role[1])))
-        elif kind == "stopping":
-            theta.append(float(default.stopping_scale[p.role[1]]))
-        else:
-            raise ValueError(f"no truth for {p.name}")
-    return np.array(theta)
+    values = dict(TRUTH)
+    if nuisance_truth == "prior":
+        for p in objective.spec.parameters:
+            if p.name not in TRUTH and p.role.is_nuisance:
+                values[p.name] = float(p.prior.dist.rvs(random_state=rng))
+    return nominal_theta(objective, values)
 
 
 def simulate_counts(text: str, theta_by_name: dict, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -186,64 +177,9 @@ def simulate_counts(text: str, theta_by_name: dict, seed: int) -> tuple[np.ndarr
     _, obj = scenario_objective(text, full_range=True)
     base = truth_vector(obj, nuisance_truth="nominal")
     theta = np.array([theta_by_name.get(n, b) for n, b in zip(obj.spec.names, base)])
-    fractions, nuisance, _ = obj.unpack(theta)
-    expected = np.maximum(np.asarray(obj.model.expected_counts(fractions, nuisance)), 0.0)
+    expected = obj.predict(theta, "all")
     counts = np.random.default_rng(seed).poisson(expected)
     return expected, counts
-
-
-# ----------------------------------------------------------------------------------------------
-# Fisher information and the Cramer-Rao bound
-def fd_steps(objective, theta, rel_step: float) -> np.ndarray:
-    """Central-difference steps per parameter: ``rel_step`` x |value| for areal densities
-    and widths (x the prior sd at zero), ``rel_step`` x max(|value|, prior sd) for nuisances.
-
-    Why 1e-3 by default: the expected counts are smooth in every parameter, so a central
-    difference errs by O(h^2) relative to the scale on which the spectrum changes (about
-    (0.25e15 / 60e15)^2 = 2e-5 for the areal density), while the counts' round-off (about
-    1e-12 relative) divided by the step stays near 1e-9; halving the step is checked in
-    tests/test_coverage.py.
-    """
-    steps = []
-    for value, p in zip(theta, objective.spec.parameters):
-        sd = float(p.prior.dist.std())
-        if p.role[0] in ("areal_density", "mixing") and value != 0:
-            scale = abs(value)
-        else:
-            scale = max(abs(value), sd) if math.isfinite(sd) else max(abs(value), 1.0)
-        steps.append(rel_step * scale)
-    return np.array(steps)
-
-
-def fisher_matrix(objective, theta, rel_step: float = 1e-3, scale: float = 1.0) -> np.ndarray:
-    """Fisher information of the Poisson likelihood over the window at ``theta``.
-
-    ``I_ij = sum_c (d mu_c/d theta_i)(d mu_c/d theta_j) / mu_c`` (common practice), the
-    derivatives by central finite differences of step ``rel_step`` x the parameter's scale
-    (:func:`fd_steps`).  ``scale`` multiplies every expected count (more charge).
-    """
-    theta = np.asarray(theta, dtype=float)
-    mu = scale * objective.expected(theta)
-    steps = fd_steps(objective, theta, rel_step)
-    grads = []
-    for i, h in enumerate(steps):
-        up, down = theta.copy(), theta.copy()
-        up[i] += h
-        down[i] -= h
-        grads.append(scale * (objective.expected(up) - objective.expected(down)) / (2 * h))
-    g = np.array(grads)
-    keep = mu > 0
-    return (g[:, keep] / mu[keep]) @ g[:, keep].T
-
-
-def cramer_rao_sd(fisher, index: int = 0, prior_sd=None) -> float:
-    """sqrt of the ``index``-th diagonal element of the inverse Fisher matrix; with
-    ``prior_sd`` (one per parameter, inf for none) the Gaussian priors' information
-    ``1/sd^2`` is added first (van Trees 1968)."""
-    f = np.array(fisher, dtype=float)
-    if prior_sd is not None:
-        f = f + np.diag(1.0 / np.asarray(prior_sd, dtype=float) ** 2)
-    return float(math.sqrt(np.linalg.inv(f)[index, index]))
 
 
 # ----------------------------------------------------------------------------------------------
@@ -317,7 +253,7 @@ def expected_coverage_given_draws(records: list) -> dict:
     names = obj.spec.names
     theta0 = truth_vector(obj, nuisance_truth="nominal")
     fisher = fisher_matrix(obj, theta0)
-    lam = np.array([1.0 / float(p.prior.dist.std()) ** 2 if p.role[0] in ("nuisance", "stopping")
+    lam = np.array([1.0 / float(p.prior.dist.std()) ** 2 if p.role.is_nuisance
                     else 0.0 for p in obj.spec.parameters])
     p_inv = np.linalg.inv(fisher + np.diag(lam))
     noise = p_inv @ fisher @ p_inv
@@ -326,7 +262,7 @@ def expected_coverage_given_draws(records: list) -> dict:
     shift = -(p_inv @ (lam[:, None] * (truth - theta0).T)).T
     out = {"expected68": {}, "expected95": {}, "error_shift_correlation": {}}
     for i, name in enumerate(names):
-        if obj.spec.parameters[i].role[0] == "mixing":
+        if obj.spec.parameters[i].role is Role.MIXING:
             continue  # half-normal prior: no Gaussian precision to add
         sd_post, sd_noise, m = math.sqrt(p_inv[i, i]), math.sqrt(noise[i, i]), shift[:, i]
         for level, z in ((68, 0.9945), (95, 1.96)):
@@ -378,7 +314,7 @@ def crlb_study(rel_step: float = 1e-3, high_scale: float = 10.0) -> dict:
     text = run_text(CHARGE_UC)
     _, obj = scenario_objective(text)
     theta = truth_vector(obj, nuisance_truth="nominal")
-    prior_sd = np.array([float(p.prior.dist.std()) if p.role[0] in ("nuisance", "stopping")
+    prior_sd = np.array([float(p.prior.dist.std()) if p.role.is_nuisance
                          else math.inf for p in obj.spec.parameters])
     film = [i for i, p in enumerate(obj.spec.parameters) if p.name in TRUTH]
     for label, scale in (("study_counts", 1.0), ("high_counts", high_scale)):

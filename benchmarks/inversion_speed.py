@@ -43,7 +43,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import forward  # noqa: E402
-from inversion._api import NotConvergedWarning, invert  # noqa: E402
+from inversion import NotConvergedWarning, invert  # noqa: E402
 
 COMMON = """\
 # INVENTED benchmark scenario (not a real sample or measurement).
@@ -124,11 +124,11 @@ def simulate(run_path, scenario, seed):
     model = forward.ForwardModel(run, n_channels=1024)
     fractions = model.layer_fractions()
     if scenario == "nodes":
-        from inversion._profiles import LayerStack
+        from inversion import LayerStack
         stack = LayerStack(model.grid.edges_1e15, 2, 2, substrate=True)
         fractions = stack.fractions([250.0], [60.0], np.eye(2))  # invented truth: mixed
     else:
-        from inversion._profiles import LayerStack
+        from inversion import LayerStack
         stack = LayerStack(model.grid.edges_1e15, len(model.species), 3, substrate=True)
         comps = np.zeros((3, len(model.species)))
         for i, layer in enumerate(run.layers):

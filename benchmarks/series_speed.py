@@ -36,7 +36,7 @@ def _series(folder: Path, max_steps: int):
     import forward
     import make_demo  # the demo's own generator: the same invented truth
 
-    from inversion._series import load_series
+    from inversion import load_series
 
     template = forward.load_run(DEMO / "run.toml")
     text = (DEMO / "series.toml").read_text()
@@ -63,7 +63,8 @@ def main(argv=None) -> int:
 
     import h5py
 
-    from inversion._series import _payloads, invert_member, run_series
+    from inversion import run_series
+    from inversion.series._runner import _payloads, invert_member
 
     warnings.simplefilter("ignore")  # not-converged warnings are counted below instead
     with tempfile.TemporaryDirectory() as tmp:

@@ -67,6 +67,20 @@ _EXPORTS = {
     "Nuisance": "._model",
     "SliceGrid": "._model",
     "KernelInputs": "._kernel",
+    # the sample as columns of the fraction table, species masses
+    "SampleColumns": "._columns",
+    "LayerColumns": "._columns",
+    # the two unit conversions
+    "channel_energy_keV": "._conversions",
+    "channel_of_energy": "._conversions",
+    "atoms_per_cm3": "._conversions",
+    "nm_from_1e15": "._conversions",
+    "areal_density_from_nm": "._conversions",
+    # a run's expected spectrum, and what its set-up implies (sondage simulate, check)
+    "simulate": "._simulate",
+    "column_name": "._simulate",
+    "check_report": "._preflight",
+    "find_leading_edge": "._preflight",
 }
 
 __all__ = sorted(_EXPORTS)

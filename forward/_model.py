@@ -6,7 +6,8 @@ per-element and per-isotope tables on one uniform energy grid; then
 :meth:`ForwardModel.expected_counts` evaluates the kernel of :mod:`forward._kernel` on a
 ``(n_slices, n_species)`` table of atom fractions (on the nominal grid, or on slice widths the
 caller gives) with the calibration, resolution, fluence, stopping scale and slope and
-straggling scale of a :class:`Nuisance`.
+straggling scale of a :class:`Nuisance`.  Kept whole: species, tables, slice grid and the
+kernel's argument list are the set-up of one object and change together.
 
 Tables
 ------
@@ -72,6 +73,7 @@ from dataclasses import dataclass, field, fields
 
 import numpy as np
 
+from ._conversions import channel_energy_keV
 from ._cross_section import load_ratio_table, rutherford_cross_section
 from ._elements import element
 from ._errors import InputError
@@ -749,9 +751,7 @@ class ForwardModel:
         """Lower edges of channels 0..n and the upper edge of the last one, keV."""
         nu = self._check_nuisance(nuisance)
         c = self._edge_channels
-        edges = nu.offset_keV + nu.gain_keV * c
-        if nu.quadratic_keV:
-            edges += nu.quadratic_keV * c * c
+        edges = channel_energy_keV(c, nu.offset_keV, nu.gain_keV, nu.quadratic_keV)
         # the width of channel c is gain + quad (2c + 1), linear in c: positive everywhere
         # exactly when it is positive for the first and the last channel
         n = self.n_channels
@@ -766,7 +766,7 @@ class ForwardModel:
         """Energy at the middle of each channel, keV: ``E(c + 0.5)``."""
         nu = self._check_nuisance(nuisance)
         c = np.arange(self.n_channels, dtype=float) + 0.5
-        return nu.offset_keV + nu.gain_keV * c + nu.quadratic_keV * c * c
+        return channel_energy_keV(c, nu.offset_keV, nu.gain_keV, nu.quadratic_keV)
 
     def kernel_inputs(self, fractions, nuisance=None, *, widths_1e15=None, per_species=False,
                       per_isotope=False, record=None) -> KernelInputs:
@@ -957,3 +957,12 @@ class ForwardModel:
             ok = np.isfinite(e)
             out[label] = (e[ok].copy(), depth[ok].copy())
         return out
+
+    def sample_columns(self):
+        """The run's layers as columns of the fraction table, with species masses
+        (:class:`forward.SampleColumns`, built once)."""
+        cached = self.__dict__.get("_sample_columns")
+        if cached is None:
+            from ._columns import sample_columns
+            cached = self._sample_columns = sample_columns(self)
+        return cached

@@ -4,6 +4,8 @@ The schema is documented key by key in README.md, "The run file".  This module r
 :mod:`tomllib`, checks every value and builds frozen dataclasses.  Every problem raises
 :class:`forward.InputError` with ``where="<file>: <dotted key>"``, e.g.
 ``run.toml: layer[2].areal_density_1e15`` (layers are counted from 1, top layer first).
+Kept whole: one file format read by one set of table helpers with one way of naming where a
+problem is; split, the checks of one table would end up in several places.
 
 Geometry conventions (angles in degrees, measured from the sample normal):
 
@@ -40,6 +42,8 @@ from typing import Any, Mapping
 
 import scipy.constants
 
+from ._conversions import (areal_density_from_nm, atoms_per_cm3, channel_energy_keV,
+                           channel_of_energy, nm_from_1e15)
 from ._elements import Isotope, capitalisation_slips, element, ion, isotope, parse_formula
 from ._errors import InputError, warn_input
 
@@ -269,7 +273,8 @@ class Calibration:
 
     def energy_keV(self, channel):
         """Energy (keV) of the lower edge of ``channel`` (scalar or array, may be fractional)."""
-        return self.offset_keV + self.keV_per_channel * channel + self.quadratic_keV * channel * channel
+        return channel_energy_keV(channel, self.offset_keV, self.keV_per_channel,
+                                  self.quadratic_keV)
 
     def centre_keV(self, channel):
         """Energy (keV) at the middle of ``channel``: ``E(channel + 0.5)``."""
@@ -299,14 +304,8 @@ class Calibration:
 
         ``floor(channel_of(E))`` is the channel that holds energy ``E``.
         """
-        a, b, c = self.quadratic_keV, self.keV_per_channel, self.offset_keV - energy_keV
-        if a == 0.0:
-            return -c / b
-        disc = b * b - 4.0 * a * c
-        if disc < 0:
-            return math.inf
-        # the root on the increasing branch, written to avoid cancellation
-        return 2.0 * -c / (b + math.sqrt(disc))
+        return channel_of_energy(energy_keV, self.offset_keV, self.keV_per_channel,
+                                 self.quadratic_keV)
 
 
 @dataclass(frozen=True)
@@ -390,7 +389,7 @@ class Layer:
         """Atomic density ``rho N_A / M_mean`` in atoms/cm3, or None without a mass density."""
         if self.density_g_cm3 is None:
             return None
-        return self.density_g_cm3 * scipy.constants.N_A / self.mean_mass_u
+        return atoms_per_cm3(self.density_g_cm3, self.mean_mass_u)
 
     @property
     def thickness_nm(self) -> float | None:
@@ -398,12 +397,12 @@ class Layer:
         n = self.atoms_per_cm3
         if n is None or self.areal_density_1e15 is None:
             return None
-        return self.areal_density_1e15 * 1e15 / n * 1e7
+        return nm_from_1e15(self.areal_density_1e15, n)
 
     def nm_per_1e15(self) -> float | None:
         """Thickness in nm of 1e15 atoms/cm2 of this layer, or None without a mass density."""
         n = self.atoms_per_cm3
-        return None if n is None else 1e15 / n * 1e7
+        return None if n is None else nm_from_1e15(1.0, n)
 
 
 @dataclass(frozen=True)
@@ -985,7 +984,7 @@ def _read_layers(source, top) -> list[Layer]:
                                      "add density_g_cm3 or give areal_density_1e15 instead",
                                      where=t.where("thickness_nm"))
                 probe = Layer(name, fractions, None, density, isotopes, False, formula)
-                areal = thickness * 1e-7 * probe.atoms_per_cm3 / 1e15
+                areal = areal_density_from_nm(thickness, probe.atoms_per_cm3)
         layers.append(Layer(name, fractions, areal, density, isotopes, substrate, formula))
     return layers
 

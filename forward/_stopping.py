@@ -1,7 +1,8 @@
 """Stopping cross-sections of helium ions in the elements and in mixtures.
 
 Everything here is in eV/(1e15 atoms/cm2) per target atom, with energies in keV, and every
-function accepts a scalar or a numpy array of energies.
+function accepts a scalar or a numpy array of energies.  Kept whole: the electronic, nuclear
+and tabulated stopping share the coefficient tables, range checks and units of one model.
 
 Electronic stopping of 4He
     J. F. Ziegler, *Helium: Stopping Powers and Ranges in All Elemental Matter* (Pergamon,

@@ -1,7 +1,8 @@
 """sondage.inversion: profiles, priors, likelihood, sampler, result files, reports, series.
 
 Uses :mod:`forward` only through its public names.  Public names are resolved lazily
-(PEP 562), so ``import inversion`` stays cheap.
+(PEP 562), so ``import inversion`` stays cheap.  The map of the subpackages (``fit``,
+``sample``, ``results``, ``report``, ``series``, ``cli``) is in DEVELOPERS.md.
 
 A few lines do the whole job::
 
@@ -19,38 +20,44 @@ _EXPORTS = {
     # the job
     "invert": "._api",
     "prepare": "._api",
-    "read_result": "._store",
-    "Result": "._store",
+    "read_result": ".results._result",
+    "Result": ".results._result",
     "NotConvergedWarning": "._api",
-    # the [fit] table, priors, profiles
-    "parse_fit": "._fitspec",
-    "FitSpec": "._fitspec",
-    "Parameter": "._fitspec",
-    "Prior": "._priors",
-    "make_prior": "._priors",
-    "parse_prior": "._priors",
-    "LayerStack": "._profiles",
-    "NodeProfile": "._profiles",
-    "step_average": "._profiles",
+    # the [fit] table, parameter roles, priors, profiles
+    "parse_fit": ".fit._spec",
+    "FitSpec": ".fit._spec",
+    "Parameter": ".fit._spec",
+    "Role": ".fit._roles",
+    "Prior": ".fit._priors",
+    "make_prior": ".fit._priors",
+    "parse_prior": ".fit._priors",
+    "LayerStack": ".fit._profiles",
+    "NodeProfile": ".fit._profiles",
+    "step_average": ".fit._profiles",
     # objective and sampler
-    "Objective": "._objective",
-    "ModelBuilder": "._objective",
-    "Sampler": "._sampler",
+    "Objective": ".fit._objective",
+    "ModelBuilder": ".fit._objective",
+    "Sampler": ".sample._sampler",
+    # what a measurement can tell: Fisher information and the Cramer-Rao bound
+    "fisher_matrix": ".fit._information",
+    "cramer_rao_sd": ".fit._information",
+    "nominal_theta": ".fit._information",
     # reports and figures
-    "build_report": "._report",
-    "read_report_data": "._report",
-    "plot_spectrum": "._plots",
-    "plot_profile": "._plots",
-    "plot_corner": "._plots",
-    "plot_convergence": "._plots",
+    "build_report": ".report._build",
+    "read_report_data": ".report._data",
+    "plot_spectrum": ".report._figures",
+    "plot_profile": ".report._figures",
+    "plot_corner": ".report._chain_figures",
+    "plot_convergence": ".report._chain_figures",
     # annealing series
-    "diffusion_draws": "._diffusion",
-    "arrhenius_fit": "._diffusion",
-    "compare": "._diffusion",
-    "compare_neighbours": "._diffusion",
-    "load_series": "._series",
-    "run_series": "._series",
-    "read_series": "._series",
+    "diffusion_draws": ".series._diffusion",
+    "arrhenius_fit": ".series._diffusion",
+    "compare": ".series._diffusion",
+    "compare_neighbours": ".series._diffusion",
+    "load_series": ".series._file",
+    "run_series": ".series._runner",
+    "read_series": ".series._seriesfile",
+    "series_report": ".series._figures",
 }
 
 __all__ = sorted(_EXPORTS)

@@ -104,7 +104,7 @@ def test_valid_corpus_inputs_are_accepted(capsys):
     assert cli.main(["check", str(VALID_RUN)]) == 0
     assert cli.main(["check", str(CORPUS / "_valid_fit_run.toml"),
                      str(CORPUS / "_valid_spectrum.csv")]) == 0
-    from inversion._series import load_series
+    from inversion import load_series
 
     series = load_series(CORPUS / "_valid_series.toml")
     assert [m.label for m in series.members] == ["asdep", "a700"]

@@ -19,7 +19,7 @@ import pytest
 
 import forward
 from inversion import cli
-from inversion._cmd_check import check_report, find_leading_edge
+from forward import check_report, find_leading_edge
 
 HERE = Path(__file__).resolve().parent
 CORPUS = HERE / "bad_inputs"
@@ -141,12 +141,10 @@ def test_unreadable_file_is_an_os_error_exit_2(capsys, tmp_path, monkeypatch):
 
 
 def test_internal_error_exit_1_and_debug_traceback(capsys, monkeypatch):
-    from inversion import _cmd_check
-
     def boom(*a, **k):
         raise ZeroDivisionError("float division by zero")
 
-    monkeypatch.setattr(_cmd_check, "check_report", boom)
+    monkeypatch.setattr(forward, "check_report", boom)
     code, out, err = _run_main(capsys, ["check", VALID_RUN])
     assert code == 1
     assert err.strip() == ("sondage: internal error: ZeroDivisionError: float division by zero "
@@ -157,12 +155,10 @@ def test_internal_error_exit_1_and_debug_traceback(capsys, monkeypatch):
 
 
 def test_keyboard_interrupt_exit_130(capsys, monkeypatch):
-    from inversion import _cmd_check
-
     def interrupted(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(_cmd_check, "check_report", interrupted)
+    monkeypatch.setattr(forward, "check_report", interrupted)
     code, out, err = _run_main(capsys, ["check", VALID_RUN])
     assert code == 130
     assert err.strip() == "sondage: interrupted"

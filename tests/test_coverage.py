@@ -10,9 +10,9 @@ default sampler settings.
 
 from __future__ import annotations
 
-import importlib.util
 import math
-import sys
+import multiprocessing
+import tempfile
 import warnings
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
@@ -21,31 +21,90 @@ import numpy as np
 import pytest
 from scipy import stats
 
-ROOT = Path(__file__).resolve().parents[1]
+import forward
+from inversion import (NotConvergedWarning, cramer_rao_sd, fisher_matrix, invert,
+                       nominal_theta, prepare)
 
-
-def _load_study():
-    # loaded under its own name: "coverage" would be taken for the PyPI package of that name
-    name = "sondage_benchmark_coverage"
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.spec_from_file_location(name, ROOT / "benchmarks" / "coverage.py")
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
-    spec.loader.exec_module(module)
-    return module
-
-
-study = _load_study()
-
+#: the invented truth of the film (1e15 atoms/cm2)
+TRUTH = {"film.areal_density": 250.0, "film.mixing": 40.0}
+QUANTITIES = ("film.areal_density", "film.mixing")
+CHANNELS = 1024
+CHARGE_UC = 2.0
+WINDOW = (760, 890)
 FIXED = ["fluence_scale", "gain_keV", "offset_keV", "fwhm_keV", "stopping"]
 FAST = "walkers = 12\ntau_multiple = 30\ncheck_every = 50\nmax_steps = 6000\nband_draws = 10"
 N_REPLICAS = 8
 
+# The study's INVENTED scenario (the same as benchmarks/coverage.py's; not a real sample).
+_RUN = """\
+# INVENTED scenario for the calibration study (not a real sample, not a measurement):
+# a molybdenum film on glassy carbon whose Mo/C interface has mixed.
+title = "invented: Mo film on glassy carbon, mixed interface"
+[beam]
+ion = "4He"
+energy_keV = 2000.0
+[geometry]
+scattering_deg = 165.0
+incidence_deg = 0.0
+exit_deg = 15.0
+[detector]
+fwhm_keV = 15.0
+solid_angle_msr = 3.0
+[calibration]
+keV_per_channel = 2.0
+offset_keV = 20.0
+[exposure]
+charge_uC = {charge_uC}
+live_fraction = 0.95
+[[layer]]
+name = "film"
+formula = "Mo"
+areal_density_1e15 = 250.0
+density_g_cm3 = 10.2
+[[layer]]
+name = "base"
+formula = "C"
+substrate = true
+density_g_cm3 = 1.8
+[fit]
+profile = "layers"
+{window}
+{fixed}
+{extra}
+[fit.free]
+"film.areal_density" = {{ uniform = [100.0, 500.0] }}
+"film.mixing" = true
+"""
 
-def _task(seed, charge_uC=study.CHARGE_UC):
-    return {"study": "test", "seed": seed, "charge_uC": charge_uC, "fixed": FIXED,
-            "fit_extra": FAST, "nuisance_truth": "nominal"}
+
+def run_text(charge_uC=CHARGE_UC, *, fixed=(), fit_extra="", window=True) -> str:
+    """The scenario's run text (``window=False``: no fit window, every channel computed)."""
+    fixed_line = "" if not fixed else "fixed = [" + ", ".join(f'"{f}"' for f in fixed) + "]"
+    return _RUN.format(charge_uC=float(charge_uC), fixed=fixed_line, extra=fit_extra,
+                       window=f"windows = [[{WINDOW[0]}, {WINDOW[1]}]]" if window else "")
+
+
+def scenario_objective(text):
+    """The objective of a run text; placeholder counts (the objective only predicts)."""
+    return prepare(forward.parse_run(text, source="coverage.toml"), np.ones(CHANNELS))[1]
+
+
+def run_replica(task: dict) -> dict:
+    """Simulate one spectrum at the truth and invert it (picklable for a process pool)."""
+    seed = int(task["seed"])
+    text = run_text(task["charge_uC"], fixed=FIXED, fit_extra=FAST)
+    sim = scenario_objective(run_text(task["charge_uC"], fixed=FIXED, fit_extra=FAST,
+                                      window=False))
+    expected = sim.predict(nominal_theta(sim, TRUTH), "all")
+    counts = np.random.default_rng(seed).poisson(expected)
+    run = forward.parse_run(text, source=f"test-{seed}.toml")
+    with tempfile.TemporaryDirectory() as tmp, warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotConvergedWarning)
+        res = invert(run, counts, Path(tmp) / "r.h5", seed=seed, workers=1, progress=False)
+    return {"seed": seed, "truth": dict(TRUTH), "converged": bool(res.converged),
+            "steps": int(res.diagnostics.get("steps", 0)),
+            "tau_max": float(np.nanmax(res.diagnostics.get("autocorr_time", [np.nan]))),
+            "summary": {n: dict(res.summary[n]) for n in res.names}}
 
 
 # ----------------------------------------------------------------------------------------------
@@ -54,49 +113,50 @@ def test_fisher_information_of_the_fluence_is_the_total_count():
     # A Poisson mean proportional to a scale F (mu_c = F m_c) has Fisher information
     # sum_c m_c^2 / (F m_c) = N / F^2 at F = 1, N the expected total count: the bound on F is
     # 1/sqrt(N), the familiar relative error of a count (common practice).
-    _, obj = study.scenario_objective(study.run_text())
-    theta = study.truth_vector(obj, nuisance_truth="nominal")
+    obj = scenario_objective(run_text())
+    theta = nominal_theta(obj, TRUTH)
     i = obj.spec.names.index("fluence_scale")
-    fisher = study.fisher_matrix(obj, theta)
-    total = float(obj.expected(theta).sum())
+    fisher = fisher_matrix(obj, theta)
+    total = float(obj.predict(theta).sum())
     assert fisher[i, i] == pytest.approx(total, rel=1e-6)
 
 
 def test_cramer_rao_bound_does_not_depend_on_the_difference_step():
     # Central differences err by O(h^2) (common practice): halving the step must leave the
     # bound (Cramer 1946; Rao 1945) on the areal density unchanged within 1 %.
-    text = study.run_text(10 * study.CHARGE_UC, fixed=FIXED)
-    _, obj = study.scenario_objective(text)
-    theta = study.truth_vector(obj, nuisance_truth="nominal")
+    text = run_text(10 * CHARGE_UC, fixed=FIXED)
+    obj = scenario_objective(text)
+    theta = nominal_theta(obj, TRUTH)
     assert obj.spec.names == ["film.areal_density", "film.mixing"]
-    full = study.cramer_rao_sd(study.fisher_matrix(obj, theta, rel_step=1e-3))
-    half = study.cramer_rao_sd(study.fisher_matrix(obj, theta, rel_step=5e-4))
+    full = cramer_rao_sd(fisher_matrix(obj, theta, rel_step=1e-3))
+    half = cramer_rao_sd(fisher_matrix(obj, theta, rel_step=5e-4))
     assert half == pytest.approx(full, rel=0.01)
     # the bound scales as 1/sqrt(counts) (Poisson statistics, common practice)
-    _, obj1 = study.scenario_objective(study.run_text(study.CHARGE_UC, fixed=FIXED))
-    one = study.cramer_rao_sd(study.fisher_matrix(obj1, theta, rel_step=1e-3))
+    obj1 = scenario_objective(run_text(CHARGE_UC, fixed=FIXED))
+    one = cramer_rao_sd(fisher_matrix(obj1, theta, rel_step=1e-3))
     assert full / one == pytest.approx(1 / math.sqrt(10), rel=1e-3)
     # freeing the nuisances cannot lower the bound (the inverse of a Schur complement is
     # at least the inverse of the block; Rao 1945), and with the priors' information added
     # (van Trees 1968) it lies between the two
-    _, free = study.scenario_objective(study.run_text(10 * study.CHARGE_UC))
-    theta_free = study.truth_vector(free, nuisance_truth="nominal")
-    f = study.fisher_matrix(free, theta_free)
-    prior_sd = [float(p.prior.dist.std()) if p.role[0] in ("nuisance", "stopping") else math.inf
+    free = scenario_objective(run_text(10 * CHARGE_UC))
+    theta_free = nominal_theta(free, TRUTH)
+    f = fisher_matrix(free, theta_free)
+    prior_sd = [float(p.prior.dist.std()) if p.role.is_nuisance else math.inf
                 for p in free.spec.parameters]
-    with_priors = study.cramer_rao_sd(f, 0, prior_sd)
-    assert full <= with_priors <= study.cramer_rao_sd(f, 0)
+    with_priors = cramer_rao_sd(f, 0, prior_sd)
+    assert full <= with_priors <= cramer_rao_sd(f, 0)
 
 
 # ----------------------------------------------------------------------------------------------
 @pytest.mark.slow
 def test_coverage_and_efficiency_of_the_posterior():
-    tasks = [_task(seed) for seed in range(1, N_REPLICAS + 1)]
-    high = _task(1000, charge_uC=10 * study.CHARGE_UC)
+    tasks = [{"seed": seed, "charge_uC": CHARGE_UC} for seed in range(1, N_REPLICAS + 1)]
+    high = {"seed": 1000, "charge_uC": 10 * CHARGE_UC}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        with ProcessPoolExecutor(max_workers=2) as pool:
-            records = list(pool.map(study.run_replica, tasks + [high]))
+        with ProcessPoolExecutor(max_workers=2,
+                                 mp_context=multiprocessing.get_context("fork")) as pool:
+            records = list(pool.map(run_replica, tasks + [high]))
     high_rec = records.pop()
     assert all(r["converged"] for r in records + [high_rec]), \
         [(r["seed"], r["steps"], r["tau_max"]) for r in records + [high_rec]]
@@ -104,7 +164,7 @@ def test_coverage_and_efficiency_of_the_posterior():
     # Coverage: each replica's central interval holds the truth with probability 0.68 (0.95)
     # if the posterior is calibrated, so the number that do is Binomial(n, p); accept the
     # central 99.9 % of that distribution (scipy.stats.binom).
-    for name in study.QUANTITIES:
+    for name in QUANTITIES:
         for level, p in ((68, 0.68), (95, 0.95)):
             inside = sum(r["summary"][name][f"low{level}"] <= r["truth"][name]
                          <= r["summary"][name][f"high{level}"] for r in records)
@@ -118,9 +178,9 @@ def test_coverage_and_efficiency_of_the_posterior():
     # than two such errors below 1); the noise of one spectrum and the mixing prior move the
     # posterior sd a few per cent either way; and the bound is the asymptotic, Gaussian limit,
     # which a finite-count posterior with a skewed width parameter can exceed (upper side 25 %).
-    text = study.run_text(10 * study.CHARGE_UC, fixed=FIXED, fit_extra=FAST)
-    _, obj = study.scenario_objective(text)
-    theta = study.truth_vector(obj, nuisance_truth="nominal")
-    bound = study.cramer_rao_sd(study.fisher_matrix(obj, theta))
+    text = run_text(10 * CHARGE_UC, fixed=FIXED, fit_extra=FAST)
+    obj = scenario_objective(text)
+    theta = nominal_theta(obj, TRUTH)
+    bound = cramer_rao_sd(fisher_matrix(obj, theta))
     ratio = high_rec["summary"]["film.areal_density"]["sd"] / bound
     assert 0.9 <= ratio <= 1.25, (ratio, bound)

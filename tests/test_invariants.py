@@ -230,7 +230,7 @@ band_draws = 20
 def test_noiseless_spectrum_inverts_to_the_truth(tmp_path):
     import warnings
 
-    from inversion._api import NotConvergedWarning, invert
+    from inversion import NotConvergedWarning, invert
 
     run_path = tmp_path / "run.toml"
     run_path.write_text(NOISELESS_RUN)

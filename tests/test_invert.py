@@ -12,9 +12,7 @@ import pytest
 
 import forward
 from forward import InputError
-from inversion._api import NotConvergedWarning, invert, read_result
-from inversion._fitspec import parse_fit
-from test_objective import ToyBuilder, ToyModel, toy_objective, toy_run
+from inversion import NotConvergedWarning, invert, parse_fit, read_result
 
 BASE = {"free": {"film.areal_density": {"uniform": [100, 600]}}}
 
@@ -37,9 +35,9 @@ BASE = {"free": {"film.areal_density": {"uniform": [100, 600]}}}
     ({"fixed": ["stopping"]}, "fit.free", "nothing about the sample is free"),
     ({**BASE, "count_threshold": 1e9}, "fit.count_threshold", "empty channel window"),
 ])
-def test_bad_fit_tables_raise_input_errors(fit, where, words):
+def test_bad_fit_tables_raise_input_errors(toy, fit, where, words):
     with pytest.raises(InputError) as err:
-        toy_objective(fit)
+        toy.objective(fit)
     text = str(err.value)
     # the error names the run file it came from (the toy run's source) and the key
     assert err.value.where == f"toy.toml: {where}", text
@@ -47,9 +45,9 @@ def test_bad_fit_tables_raise_input_errors(fit, where, words):
     assert "\n" not in text
 
 
-def test_defaults_are_stated_in_the_spec():
-    run = toy_run({"free": {"film.areal_density": True, "film.mixing": True}})
-    spec = parse_fit(run.fit, run, ToyModel(run))
+def test_defaults_are_stated_in_the_spec(toy):
+    run = toy.run({"free": {"film.areal_density": True, "film.mixing": True}})
+    spec = parse_fit(run.fit, run, toy.Model(run))
     lines = spec.describe_priors()
     assert lines[0] == "film.areal_density [1e15 atoms/cm2]: uniform(30, 900) (default)"
     assert "film.mixing [1e15 atoms/cm2]: halfnormal(75) (default)" in lines
@@ -60,26 +58,21 @@ def test_defaults_are_stated_in_the_spec():
 
 # ----------------------------------------------------------------------------------------------
 # Ctrl-C part-way, then --resume: the same chain as one uninterrupted run
-class _InterruptingModel(ToyModel):
-    """The toy model, sending this process SIGINT (a Ctrl-C) at its n-th evaluation."""
+def _interrupting_builder(toy, run, at):
+    """A builder of the toy model that sends this process SIGINT (a Ctrl-C) at its n-th
+    evaluation."""
 
-    def __init__(self, run, at):
-        super().__init__(run)
-        self.at = at
+    class InterruptingModel(toy.Model):
+        def expected_counts(self, *args, **kw):
+            if self.calls + 1 == at:
+                os.kill(os.getpid(), signal.SIGINT)
+            return super().expected_counts(*args, **kw)
 
-    def expected_counts(self, *args, **kw):
-        if self.calls + 1 == self.at:
-            os.kill(os.getpid(), signal.SIGINT)
-        return super().expected_counts(*args, **kw)
+    class InterruptingBuilder(toy.Builder):
+        def __call__(self):
+            return InterruptingModel(self.run)
 
-
-class _InterruptingBuilder(ToyBuilder):
-    def __init__(self, run, at):
-        super().__init__(run)
-        self.at = at
-
-    def __call__(self):
-        return _InterruptingModel(self.run, self.at)
+    return InterruptingBuilder(run)
 
 
 FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
@@ -88,18 +81,18 @@ FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
        "max_steps": 60, "check_every": 20, "band_draws": 20}
 
 
-def test_interrupt_then_resume_equals_one_run(tmp_path):
-    run = toy_run(FIT)
-    m = ToyModel(run)
+def test_interrupt_then_resume_equals_one_run(toy, tmp_path):
+    run = toy.run(FIT)
+    m = toy.Model(run)
     counts = np.random.default_rng(8).poisson(m.expected_counts(m.layer_fractions()))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", NotConvergedWarning)
-        ref = invert(run, counts, tmp_path / "one.h5", seed=3, build_model=ToyBuilder(run),
+        ref = invert(run, counts, tmp_path / "one.h5", seed=3, build_model=toy.Builder(run),
                      progress=False)
         # the model is called once per walker and step after the start search, so a Ctrl-C
         # at evaluation 1200 falls in the middle of the chain
         cut = invert(run, counts, tmp_path / "cut.h5", seed=3, progress=False,
-                     build_model=_InterruptingBuilder(run, at=1200))
+                     build_model=_interrupting_builder(toy, run, at=1200))
         assert cut.attrs["status"] == "interrupted"
         steps_cut = int(cut.diagnostics["steps"])
         assert 0 < steps_cut < 60
@@ -108,7 +101,7 @@ def test_interrupt_then_resume_equals_one_run(tmp_path):
         with h5py.File(tmp_path / "cut.h5", "r") as f:
             early = f["mcmc/chain"][:steps_cut].copy()
         done = invert(run, counts, tmp_path / "cut.h5", seed=3, resume=True,
-                      build_model=ToyBuilder(run), progress=False)
+                      build_model=toy.Builder(run), progress=False)
     assert int(done.diagnostics["steps"]) == 60
     with h5py.File(tmp_path / "cut.h5", "r") as f, h5py.File(tmp_path / "one.h5", "r") as g:
         assert np.array_equal(f["mcmc/chain"][:steps_cut], early)  # earlier steps unchanged

@@ -20,14 +20,13 @@ import numpy as np
 import forward
 from forward._path import energy_after_path
 
-from test_model import make_run
 
 E0 = 2000.0
 THETA, TH1, TH2 = 160.0, 5.0, 25.0
 GAIN = 0.5
 
 
-def _model(layers, max_slice=2.0):
+def _model(make_run, layers, max_slice=2.0):
     run = make_run(layers, energy=E0, theta=THETA, th1=TH1, th2=TH2, fwhm=10.0, gain=GAIN,
                    offset=100.0, charge=2.0, omega=3.0,
                    physics=f"[physics]\nscreening = \"none\"\nmax_slice_1e15 = {max_slice}\n")
@@ -53,8 +52,8 @@ def _cos(deg):
     return np.cos(np.radians(deg))
 
 
-def test_thick_target_surface_height():
-    run, model, sharp = _model("""
+def test_thick_target_surface_height(make_run):
+    run, model, sharp = _model(make_run, """
 [[layer]]
 formula = "Nb"
 substrate = true
@@ -73,9 +72,9 @@ substrate = true
     assert counts[edge + 1] == 0.0
 
 
-def test_thin_film_area_and_width():
+def test_thin_film_area_and_width(make_run):
     nt = 50.0
-    run, model, sharp = _model(f"""
+    run, model, sharp = _model(make_run, f"""
 [[layer]]
 formula = "Bi"
 areal_density_1e15 = {nt}
@@ -102,9 +101,9 @@ substrate = true
     assert abs(width / (eps * nt) - 1.0) < 0.02
 
 
-def test_buried_substrate_edge_shift_matches_path_integration():
+def test_buried_substrate_edge_shift_matches_path_integration(make_run):
     nt = 200.0
-    run, model, sharp = _model(f"""
+    run, model, sharp = _model(make_run, f"""
 [[layer]]
 formula = "Nb"
 areal_density_1e15 = {nt}

@@ -25,7 +25,8 @@ import pytest
 
 from forward import InputError
 from inversion import cli
-from inversion._store import read_result, write_groups
+from inversion import read_result
+from inversion.results._store import write_groups
 
 __all__: list[str] = []
 
@@ -171,7 +172,7 @@ def test_same_seed_same_samples_in_two_processes(reference, tmp_path):
 # a disk that fills up while sampling: exit 2, then --resume completes the same chain
 @pytest.mark.slow
 def test_disk_full_while_sampling_then_resume(reference, tmp_path, capsys, monkeypatch):
-    from inversion._sampler import SafeHDFBackend
+    from inversion.results._backend import SafeHDFBackend
 
     run, one = reference
     out = tmp_path / "full.h5"
@@ -197,9 +198,8 @@ def test_disk_full_while_sampling_then_resume(reference, tmp_path, capsys, monke
 
 # ----------------------------------------------------------------------------------------------
 # a crash while the final groups are written
-def test_crash_while_finalising_keeps_the_previous_state(tmp_path, monkeypatch):
-    from helpers_result import build_result
-    from inversion import _store
+def test_crash_while_finalising_keeps_the_previous_state(build_result, tmp_path, monkeypatch):
+    from inversion.results import _store
 
     path = build_result(tmp_path / "r.h5", steps=200, band_draws=20)
     before = read_result(path)
@@ -320,7 +320,7 @@ def test_garbage_anywhere_is_caught_or_harmless(small_result, tmp_path):
 # disk full, no permission, an output that is a folder or cannot be created
 @pytest.mark.parametrize("err_no", [errno.ENOSPC, errno.EACCES])
 def test_write_failures_exit_2_inputs_untouched(tmp_path, capsys, monkeypatch, err_no):
-    from inversion import _api
+    from inversion.results import _writer
 
     run = CORPUS / "_valid_fit_run.toml"
     inputs = {p: _sha(p) for p in (run, SPECTRUM)}
@@ -329,7 +329,7 @@ def test_write_failures_exit_2_inputs_untouched(tmp_path, capsys, monkeypatch, e
     def refuses(path, **kw):
         raise OSError(err_no, os.strerror(err_no), str(path))
 
-    monkeypatch.setattr(_api, "write_input", refuses)
+    monkeypatch.setattr(_writer, "write_input", refuses)
     code = cli.main(["-q", "invert", str(run), str(SPECTRUM), "-o", str(out), "--workers", "1"])
     _one_line_error(code, capsys.readouterr().err,
                     f"{out}: cannot write the result file: {os.strerror(err_no)}")
@@ -368,7 +368,7 @@ def test_report_into_a_file_path_or_unwritable_folder(small_result, tmp_path, ca
 def test_sampler_writes_wait_for_a_reader_holding_the_lock(tmp_path):
     import emcee
 
-    from inversion._sampler import SafeHDFBackend
+    from inversion.results._backend import SafeHDFBackend
 
     if os.environ.get("HDF5_USE_FILE_LOCKING", "").upper() == "FALSE":
         pytest.skip("HDF5 file locking is switched off in this environment")

@@ -23,8 +23,8 @@ import pytest
 
 from forward import InputError
 from inversion import cli
-from inversion._outputs import WriterLock, check_output, lock_path, writer_pid
-from inversion._store import read_result
+from inversion.results._outputs import WriterLock, check_output, lock_path, writer_pid
+from inversion import read_result
 
 __all__: list[str] = []
 
@@ -155,7 +155,7 @@ def test_check_output_unit_rules(tmp_path):
 # one writer per result file
 _HOLD = """
 import sys, time
-from inversion._outputs import WriterLock
+from inversion.results._outputs import WriterLock
 lock = WriterLock(sys.argv[1]).acquire()
 print("held", flush=True)
 time.sleep(float(sys.argv[2]))
@@ -190,7 +190,7 @@ def test_a_live_writer_is_named_and_a_dead_one_taken_over(tmp_path):
 
 _FORK_AND_DIE = """
 import os, sys, time
-from inversion._outputs import WriterLock, release_inherited_locks
+from inversion.results._outputs import WriterLock, release_inherited_locks
 lock = WriterLock(sys.argv[1]).acquire()
 ready_r, ready_w = os.pipe()
 child = os.fork()
@@ -251,7 +251,7 @@ time.sleep(60)
 def test_a_file_held_open_by_another_program_is_busy(tmp_path, small_result, monkeypatch):
     if os.environ.get("HDF5_USE_FILE_LOCKING", "").upper() == "FALSE":
         pytest.skip("HDF5 file locking is switched off in this environment")
-    import inversion._store as store
+    import inversion.results._store as store
 
     target = tmp_path / "copy.h5"
     shutil.copy(small_result, target)

@@ -7,8 +7,8 @@ import pytest
 from scipy import integrate, stats
 from scipy.special import erfc
 
-from inversion._objective import _stick_breaking
-from inversion._profiles import LayerStack, NodeProfile, alr_to_fractions, step_average
+from inversion.fit._profiles import (LayerStack, NodeProfile, alr_to_fractions, step_average,
+                                     stick_breaking)
 
 EDGES = np.concatenate([np.linspace(0.0, 400.0, 41), np.linspace(410.0, 1000.0, 60)])
 
@@ -123,7 +123,7 @@ def test_stick_breaking_with_beta_priors_is_dirichlet():
     a, m, n = 1.0, 4, 4000
     v = np.column_stack([stats.beta(a, (m - k - 1) * a).rvs(n, random_state=rng)
                          for k in range(m - 1)])
-    f = np.array([_stick_breaking(row) for row in v])
+    f = np.array([stick_breaking(row) for row in v])
     assert np.allclose(f.sum(axis=1), 1.0)
     # four KS tests at a family-wise false-alarm rate of 1 % (Bonferroni: 0.25 % each)
     for j in range(m):

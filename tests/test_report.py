@@ -1,7 +1,7 @@
 """Tests of ``sondage report``: files written, numbers carried over, flags and errors.
 
-The result files are small synthetic ones from tests/helpers_result.py (an invented scenario,
-written with the result store's own writers).
+The result files are small synthetic ones from the ``build_result`` fixture (tests/conftest.py;
+an invented scenario, written with the result store's own writers).
 """
 
 from __future__ import annotations
@@ -19,24 +19,23 @@ from scipy import stats
 from scipy.stats.mstats import mquantiles
 
 from forward import InputError
-from helpers_result import build_result
-from inversion import _plots
-from inversion._report import (SUMMARY_COLUMNS, build_report, format_summary_text,
-                               read_report_data)
+from inversion import build_report, read_report_data
 from inversion.cli import main
+from inversion.report import _chain_figures, _figures
+from inversion.report._tables import SUMMARY_COLUMNS, format_summary_text
 
 FIGURES = ("spectrum", "profile", "corner", "convergence")
 
 
 @pytest.fixture(scope="module")
-def converged(tmp_path_factory):
+def converged(build_result, tmp_path_factory):
     folder = tmp_path_factory.mktemp("converged")
     path = build_result(folder / "film.h5", steps=4000, seed=7)
     return path, build_report(path, folder / "report")
 
 
 @pytest.fixture(scope="module")
-def short(tmp_path_factory):
+def short(build_result, tmp_path_factory):
     """60 steps (not converged) and no layer density (thickness in nm undefined)."""
     folder = tmp_path_factory.mktemp("short")
     path = build_result(folder / "short.h5", steps=60, seed=11, with_density=False)
@@ -117,7 +116,7 @@ def test_csv_matches_quantiles_of_the_derived_draws(converged):
         q = mquantiles(x, prob=[0.025, 0.16, 0.5, 0.84, 0.975], alphap=1, betap=1)
         row = rows[name]
         got = [float(row[c]) for c in ("lower_95", "lower_68", "median", "upper_68",
-                                       "upper_95")]
+                                       "upper_95")]  # the csv's own column names
         np.testing.assert_allclose(got, q, rtol=1e-10, err_msg=name)
         assert float(row["sd"]) == pytest.approx(np.std(x, ddof=1), rel=1e-10)
 
@@ -168,7 +167,7 @@ def test_undefined_thickness_is_blank_with_the_files_note(short):
     assert "film.thickness_nm: no mass density given: NaN" in written["summary.md"].read_text()
 
 
-def test_file_without_diagnostics_is_flagged(tmp_path):
+def test_file_without_diagnostics_is_flagged(build_result, tmp_path):
     path = build_result(tmp_path / "nodiag.h5", steps=200, with_diagnostics=False)
     text = format_summary_text(read_report_data(path))
     assert text.startswith("WARNING: NOT CONVERGED: the file has no convergence diagnostics")
@@ -225,8 +224,8 @@ def test_cli_writes_pdf_and_exits_2_on_a_bad_file(tmp_path, converged, capsys):
 # plot functions
 
 
-@pytest.mark.parametrize("function", [_plots.plot_spectrum, _plots.plot_profile,
-                                      _plots.plot_corner, _plots.plot_convergence])
+@pytest.mark.parametrize("function", [_figures.plot_spectrum, _figures.plot_profile,
+                                      _chain_figures.plot_corner, _chain_figures.plot_convergence])
 def test_unknown_keyword_is_rejected(converged, function):
     with pytest.raises(TypeError):
         function(converged[0], colour_sheme="dark")
@@ -234,37 +233,37 @@ def test_unknown_keyword_is_rejected(converged, function):
 
 def test_bands_are_labelled_and_overplotting_reuses_the_figure(converged):
     data = read_report_data(converged[0])
-    fig = _plots.plot_profile(data)
+    fig = _figures.plot_profile(data)
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert {"68 % credible band", "95 % credible band", "posterior median"} <= set(labels)
     top = fig.axes[0].child_axes  # the secondary depth axis in nm
     assert len(top) == 1 and top[0].get_xlabel().startswith("depth (nm")
-    again = _plots.plot_profile(data, ax=fig.axes[0], species=["Zn"], label="second")
+    again = _figures.plot_profile(data, ax=fig.axes[0], species=["Zn"], label="second")
     assert again is fig
     plt.close(fig)
 
-    fig = _plots.plot_spectrum(data)
+    fig = _figures.plot_spectrum(data)
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert "68 % predictive band" in labels and "measured counts" in labels
     assert [ax.get_xlabel() for ax in fig.axes[0].child_axes] == ["energy (keV)"]
-    assert _plots.plot_spectrum(data, fig=fig, show_species=False, label="again") is fig
+    assert _figures.plot_spectrum(data, fig=fig, show_species=False, label="again") is fig
     plt.close(fig)
 
 
 def test_plots_take_plain_arrays():
     rng = np.random.default_rng(3)
-    fig = _plots.plot_corner(samples=rng.normal(size=(500, 3)), labels=["a", "b", "c"])
+    fig = _chain_figures.plot_corner(samples=rng.normal(size=(500, 3)), labels=["a", "b", "c"])
     assert len(fig.axes) == 9
     plt.close(fig)
     depth = np.linspace(0, 100, 11)
     band = np.tile(np.linspace(0.1, 0.9, 5)[:, None], (1, depth.size))
-    fig = _plots.plot_profile(depth_1e15=depth, bands={"Ni": band, "Cr": 1 - band[::-1]})
+    fig = _figures.plot_profile(depth_1e15=depth, bands={"Ni": band, "Cr": 1 - band[::-1]})
     assert fig.axes[0].get_ylabel() == "atom fraction"
     plt.close(fig)
 
 
 def test_energy_axis_follows_a_quadratic_calibration():
-    forward, inverse = _plots._channel_to_energy(
+    forward, inverse = _figures._channel_to_energy(
         np.arange(512), None, {"offset_keV": 30.0, "keV_per_channel": 3.5,
                                "quadratic_keV": 1e-4})
     channels = np.array([0.0, 17.0, 250.5, 511.0])
@@ -281,7 +280,7 @@ def test_energy_axis_follows_a_quadratic_calibration():
 def test_deviance_residuals_match_the_poisson_log_likelihood():
     counts = np.array([0, 1, 3, 10, 57, 400, 2])
     expected = np.array([0.4, 2.5, 3.0, 7.2, 60.0, 380.5, 0.05])
-    r = _plots.deviance_residuals(counts, expected)
+    r = _figures.deviance_residuals(counts, expected)
     # deviance residual squared = 2 [log L(saturated) - log L(model)] (McCullagh and Nelder,
     # Generalized Linear Models, 1989, section 2.4.3), log L from scipy.stats.poisson
     deviance = 2 * (stats.poisson.logpmf(counts, np.maximum(counts, 1e-300))
@@ -289,7 +288,7 @@ def test_deviance_residuals_match_the_poisson_log_likelihood():
     deviance[counts == 0] = 2 * expected[counts == 0]  # saturated log L is 0 at n = 0
     np.testing.assert_allclose(r ** 2, deviance, rtol=1e-9)
     np.testing.assert_array_equal(np.sign(r), np.sign(counts - expected))
-    assert math.isnan(_plots.deviance_residuals([3], [0.0])[0])
+    assert math.isnan(_figures.deviance_residuals([3], [0.0])[0])
 
 
 def test_autocorrelation_of_an_ar1_chain():
@@ -303,13 +302,13 @@ def test_autocorrelation_of_an_ar1_chain():
     chain[0] = noise[0] / np.sqrt(1 - phi ** 2)
     for t in range(1, steps):
         chain[t] = phi * chain[t - 1] + noise[t]
-    n, tau = _plots.autocorr_growth(chain, n_points=6)
+    n, tau = _chain_figures.autocorr_growth(chain, n_points=6)
     assert n[-1] == steps and tau.shape == (n.size, 1)
     assert tau[-1, 0] == pytest.approx((1 + phi) / (1 - phi), rel=0.1)
 
 
 def test_corner_keeps_room_for_thicknesses_and_widths(converged):
-    fig = _plots.plot_corner(converged[0], max_quantities=4)
+    fig = _chain_figures.plot_corner(converged[0], max_quantities=4)
     bottom = [ax.get_xlabel() for ax in fig.axes[-4:]]
     assert bottom == ["film.areal_density\n[1e15 atoms/cm2]", "film.mixing\n[1e15 atoms/cm2]",
                       "film.thickness_nm", "film.mixing_nm"]
@@ -320,9 +319,31 @@ def test_depth_axis_ends_where_the_profile_stops_changing():
     depth = np.arange(100) * 10.0 + 5.0  # a thin film over a deep substrate
     step = (depth > 200).astype(float)
     bands = {"Si": np.tile(step, (5, 1)), "Ni": np.tile(1 - step, (5, 1))}
-    fig = _plots.plot_profile(depth_1e15=depth, bands=bands)
+    fig = _figures.plot_profile(depth_1e15=depth, bands=bands)
     assert fig.axes[0].get_xlim()[1] == pytest.approx(1.3 * 205.0)
     plt.close(fig)
-    fig = _plots.plot_profile(depth_1e15=depth, bands=bands, depth_max_1e15=800.0)
+    fig = _figures.plot_profile(depth_1e15=depth, bands=bands, depth_max_1e15=800.0)
     assert fig.axes[0].get_xlim()[1] == 800.0
     plt.close(fig)
+
+
+def test_energy_axis_of_a_version_1_file_comes_from_its_stored_channel_energies(
+        converged, tmp_path):
+    # files written before the run's calibration was kept beside the spectrum (format
+    # version 1) still have the channel energies of the highest-posterior draw
+    path = tmp_path / "v1.h5"
+    path.write_bytes(converged[0].read_bytes())
+    with h5py.File(path, "a") as f:
+        del f.attrs["format_version"]
+        del f["spectrum"].attrs["run_calibration_keV"]
+        f["spectrum"].create_dataset("energy_keV", data=100.0 + 7.0 * np.arange(256))
+    data = read_report_data(path)
+    assert data.calibration == {} and "highest-posterior" in data.calibration_source
+    fig = _figures.plot_spectrum(data)
+    top = fig.axes[0].child_axes
+    assert [ax.get_xlabel() for ax in top] == ["energy (keV)"]
+    plt.close(fig)
+    # the newer file takes the posterior medians of gain and offset, the rest from the run file
+    new = read_report_data(converged[0])
+    assert new.calibration["keV_per_channel"] == new.quantity("gain_keV").stats["median"]
+    assert new.calibration["quadratic_keV"] == 0.0

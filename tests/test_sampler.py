@@ -8,8 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from inversion._sampler import Sampler
-from test_objective import toy_objective
+from inversion import Sampler
 
 FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
                 "film.mixing": {"halfnormal": 30}},
@@ -29,13 +28,13 @@ def _chain(objective, max_steps, *, path=None, seed=4, workers=1, should_stop=No
     return backend, status
 
 
-def test_prior_only_samples_reproduce_the_priors():
+def test_prior_only_samples_reproduce_the_priors(toy):
     fit = {"free": {"film.areal_density": {"uniform": [100, 600]},
                     "film.mixing": {"halfnormal": 30},
                     "film.composition": True,
                     "fluence_scale": {"lognormal": [1.0, 0.1]}},
            "fixed": ["stopping", "gain_keV", "offset_keV"], "walkers": 24}
-    obj = toy_objective(fit, likelihood=False)
+    obj = toy.objective(fit, likelihood=False)
     backend, status = _chain(obj, 6000, seed=9, check_every=1000)
     tau = float(np.max(status.tau))
     assert 6000 > 50 * tau  # long enough for emcee's autocorrelation estimate to hold
@@ -50,8 +49,8 @@ def test_prior_only_samples_reproduce_the_priors():
         assert pvalue > 0.01 / obj.ndim, (p.name, pvalue)
 
 
-def test_resume_equals_one_uninterrupted_run(tmp_path):
-    obj = toy_objective(FIT)
+def test_resume_equals_one_uninterrupted_run(toy, tmp_path):
+    obj = toy.objective(FIT)
     one, _ = _chain(obj, 80, path=tmp_path / "one.h5")
     first, st = _chain(obj, 40, path=tmp_path / "two.h5")
     assert st.steps == 40 and not st.interrupted
@@ -63,8 +62,8 @@ def test_resume_equals_one_uninterrupted_run(tmp_path):
     assert np.array_equal(second.get_log_prob(), one.get_log_prob())
 
 
-def test_stop_after_a_step_then_resume(tmp_path):
-    obj = toy_objective(FIT)
+def test_stop_after_a_step_then_resume(toy, tmp_path):
+    obj = toy.objective(FIT)
     calls = {"n": 0}
 
     def stop_at_27():
@@ -79,15 +78,15 @@ def test_stop_after_a_step_then_resume(tmp_path):
     assert np.array_equal(full.get_chain(), ref.get_chain())
 
 
-def test_two_workers_give_the_same_chain_as_one():
-    obj = toy_objective(FIT)
+def test_two_workers_give_the_same_chain_as_one(toy):
+    obj = toy.objective(FIT)
     serial, _ = _chain(obj, 30)
     pooled, _ = _chain(obj, 30, workers=2)
     assert np.array_equal(serial.get_chain(), pooled.get_chain())
 
 
-def test_walkers_start_inside_the_prior_support():
-    obj = toy_objective(FIT)
+def test_walkers_start_inside_the_prior_support(toy):
+    obj = toy.objective(FIT)
     s = Sampler(obj, n_walkers=12, seed=1)
     theta, logp = s.find_start()
     assert np.isfinite(logp)
@@ -97,7 +96,7 @@ def test_walkers_start_inside_the_prior_support():
     assert np.linalg.matrix_rank(ball - ball.mean(axis=0)) == obj.ndim
 
 
-def test_too_few_walkers_is_refused():
-    obj = toy_objective(FIT)
+def test_too_few_walkers_is_refused(toy):
+    obj = toy.objective(FIT)
     with pytest.raises(ValueError, match="at least"):
         Sampler(obj, n_walkers=obj.ndim, seed=0)

@@ -22,9 +22,11 @@ import numpy as np
 import pytest
 
 from forward import InputError
-from inversion._diffusion import BOLTZMANN_eV_PER_K
-from inversion._series import load_series, member_path, member_state, read_series, run_series
-from inversion._store import now_text, set_root_attrs, write_groups, write_input
+from inversion import load_series, read_series, run_series
+from inversion.results._store import now_text, set_attrs, write_groups, write_input
+from inversion.series._diffusion import BOLTZMANN_eV_PER_K
+from inversion.series._file import member_path
+from inversion.series._runner import member_state
 
 HERE = Path(__file__).resolve().parent
 # Invented truth (not a real material).
@@ -64,7 +66,7 @@ def standin_task(payload: dict) -> dict:
                     "film.mixing": (w * ATOMS_PER_NM3 * 1e-7 * 1e21 / 1e15 / 1e7,
                                     {"unit": "1e15 atoms/cm2"})},
     })
-    set_root_attrs(out, status="converged", finished=now_text())
+    set_attrs(out, status="converged", finished=now_text())
     return {"label": payload["label"], "path": str(out), "state": state}
 
 
@@ -176,6 +178,19 @@ def _check_series_file(out: Path, labels):
             # the external link opens the member's own result file
             assert "film.mixing_nm" in f[f"members/links/{lab}/derived"]
             assert member_state(member_path(out, lab)) == "finished"
+        # the layout the README documents (README.md, "The series result file")
+        assert f.attrs["kind"] == "series" and f.attrs["format_version"] == 2
+        assert set(f["members/summary"]) == {f"width_{k}" for k in
+                                             ("median", "lo68", "hi68", "lo95", "hi95")}
+        for lab in labels:
+            assert {"median", "lo68", "hi68", "lo95", "hi95", "negative_fraction",
+                    "time_s", "temperature_K", "unit"} <= set(f[f"diffusion/{lab}"].attrs)
+            assert f[f"diffusion/{lab}"].attrs["lo95"] == data["diffusion"][lab]["low95"]
+        for kind in ("width", "diffusion"):
+            assert set(f[f"comparison/{kind}"]) == {"a", "b", "median", "lo95", "hi95",
+                                                    "p_a_greater"}
+        for k, m in enumerate(data["members"]):
+            assert f["members/summary/width_hi68"][k] == m["width_high68"]
     return data
 
 
@@ -189,12 +204,12 @@ def test_series_on_external_scheduler(dask_cluster, tmp_path):
     data = _check_series_file(out, ["a600", "a650", "a700"])
     arr = data["arrhenius"]["attrs"]
     # invented truth inside the 95 % interval
-    assert arr["ea_eV.lo95"] < EA_eV < arr["ea_eV.hi95"]
+    assert arr["ea_eV.low95"] < EA_eV < arr["ea_eV.high95"]
     assert data["attrs"]["width_unit"] == "nm"
     # D per anneal: the truth lies within the stored 95 % interval
     for lab, dd in data["diffusion"].items():
         d_true = D0_NM2_S * np.exp(-EA_eV / (BOLTZMANN_eV_PER_K * TEMPS_K[lab]))
-        assert dd["lo95"] < d_true < dd["hi95"]
+        assert dd["low95"] < d_true < dd["high95"]
     assert len(data["comparison"]["width"]) == 3
     assert all(r["p_a_greater"] > 0.99 for r in data["comparison"]["diffusion"])
     report = out.parent / "series.report"

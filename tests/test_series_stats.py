@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import constants, stats
+from scipy import stats
 
 from forward import InputError
-from inversion._diffusion import (
+from inversion.series._diffusion import (
     BOLTZMANN_eV_PER_K,
     arrhenius_fit,
     compare,
@@ -45,9 +45,8 @@ def _synthetic_series(width_sd_nm: float, seed: int, n_draws: int = 4000):
 
 
 def test_boltzmann_constant_from_codata():
-    # scipy.constants (CODATA): k = R / N_A in J/K, divided by e for eV/K
-    assert BOLTZMANN_eV_PER_K == pytest.approx(constants.k / constants.e, rel=1e-12)
-    assert BOLTZMANN_eV_PER_K == pytest.approx(8.617333262e-5, rel=1e-9)  # CODATA 2018 value
+    # the CODATA 2018 value, exact since the 2019 SI: 8.617333262e-5 eV/K
+    assert BOLTZMANN_eV_PER_K == pytest.approx(8.617333262e-5, rel=1e-9)
 
 
 def test_diffusion_from_sharp_widths_matches_closed_form():
@@ -95,8 +94,8 @@ def test_arrhenius_recovers_invented_truth_with_realistic_widths():
     d_list = _synthetic_series(width_sd_nm=0.3, seed=11)
     fit = arrhenius_fit(TEMPS_K, d_list, seed=3, n_steps=2000)
     ea, ld0 = fit.summary["ea_eV"], fit.summary["ln_d0"]
-    assert ea["lo95"] < EA_TRUE_eV < ea["hi95"]
-    assert ld0["lo95"] < np.log(D0_TRUE_NM2_S) < ld0["hi95"]
+    assert ea["low95"] < EA_TRUE_eV < ea["high95"]
+    assert ld0["low95"] < np.log(D0_TRUE_NM2_S) < ld0["high95"]
     assert fit.diagnostics["steps_over_tau"] > 20
     # The band brackets the true line at every grid temperature.
     truth = np.log(D0_TRUE_NM2_S) - EA_TRUE_eV / (BOLTZMANN_eV_PER_K * fit.temperature_grid_K)
@@ -109,7 +108,7 @@ def test_arrhenius_with_scatter_recovers_invented_truth():
     d_list = _synthetic_series(width_sd_nm=0.3, seed=12)
     fit = arrhenius_fit(TEMPS_K, d_list, scatter=True, seed=4, n_steps=2000)
     ea = fit.summary["ea_eV"]
-    assert ea["lo95"] < EA_TRUE_eV < ea["hi95"]
+    assert ea["low95"] < EA_TRUE_eV < ea["high95"]
     assert fit.scatter_ln is not None and np.all(fit.scatter_ln >= 0)
 
 
@@ -156,8 +155,8 @@ def test_compare_two_normals_matches_analytic_probability():
     p_ref = stats.norm.cdf((mu_a - mu_b) / s)
     assert abs(c.p_a_greater - p_ref) < 4 * c.p_a_greater_mc_error
     lo95, hi95 = stats.norm.ppf([0.025, 0.975], loc=mu_a - mu_b, scale=s)
-    assert c.summary["lo95"] == pytest.approx(lo95, abs=0.02)
-    assert c.summary["hi95"] == pytest.approx(hi95, abs=0.02)
+    assert c.summary["low95"] == pytest.approx(lo95, abs=0.02)
+    assert c.summary["high95"] == pytest.approx(hi95, abs=0.02)
 
 
 def test_compare_neighbours_table():
@@ -166,13 +165,22 @@ def test_compare_neighbours_table():
     rows = compare_neighbours(["a", "b", "c"], draws)
     assert [(r["a"], r["b"]) for r in rows] == [("b", "a"), ("c", "b")]
     assert rows[0]["p_a_greater"] > 0.999 and rows[1]["p_a_greater"] < 0.001
-    assert rows[0]["lo95"] < 1.0 < rows[0]["hi95"]
+    assert rows[0]["low95"] < 1.0 < rows[0]["high95"]
 
 
-def test_interval_matches_numpy_quantiles():
-    x = np.random.default_rng(0).normal(size=1001)
+def test_interval_is_hyndman_fan_definition_7():
+    # Sample quantiles of definition 7 of Hyndman and Fan (1996, Am. Stat. 50, 361): on the
+    # sorted values x_1..x_n the p-quantile sits at position 1 + (n - 1) p, interpolated
+    # linearly.  For the values 0, 1, ..., 100 (n = 101) that position is 1 + 100 p, so the
+    # p-quantile is 100 p exactly; the mean is 50 and the sd (ddof 1) sqrt(101 x 102 / 12)
+    # = 29.3002 (the variance of the integers 0..N is (N + 1)(N + 2) / 12 with ddof 1,
+    # common practice).
+    x = np.random.default_rng(0).permutation(101).astype(float)
     iv = interval(x)
-    assert iv["median"] == pytest.approx(np.median(x))
-    assert iv["lo95"] == pytest.approx(np.quantile(x, 0.025))
+    assert iv["median"] == 50.0
+    assert (iv["low68"], iv["high68"]) == pytest.approx((16.0, 84.0), rel=1e-12)
+    assert (iv["low95"], iv["high95"]) == pytest.approx((2.5, 97.5), rel=1e-12)
+    assert iv["mean"] == pytest.approx(50.0, rel=1e-12)
+    assert iv["sd"] == pytest.approx(np.sqrt(101 * 102 / 12), rel=1e-12)
     with pytest.raises(InputError):
         interval([1.0, float("nan")])

@@ -18,7 +18,7 @@ import numpy as np
 import scipy.constants
 
 import forward
-from inversion._profiles import LayerStack
+from inversion import LayerStack
 
 HERE = Path(__file__).resolve().parent
 

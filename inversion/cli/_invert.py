@@ -1,0 +1,68 @@
+"""``sondage invert``: sample the posterior of a run's free parameters given a spectrum
+(:func:`inversion.invert`)."""
+
+from __future__ import annotations
+
+import shlex
+
+from ..sample._workers import DEFAULT_WORKERS
+
+__all__ = ["HELP", "DESCRIPTION", "add_arguments", "run"]
+
+HELP = "sample the depth-profile posterior of a spectrum into an HDF5 result file"
+
+DESCRIPTION = """\
+Invert a measured spectrum into posterior draws of the sample model's free quantities (the
+run file's [fit] table says which, and with which priors; README.md, "The [fit] table"), with nuisances such as
+fluence, calibration, resolution and stopping marginalised.  The result file holds the chain,
+posterior draws, derived thicknesses and mixing widths, profile bands, predictive spectra and
+convergence diagnostics.
+
+Sampling stops when the chain is fit.tau_multiple (default 50) autocorrelation times long, or
+at the step cap.  Ctrl-C stops after the current step and leaves the file resumable.
+
+examples:
+  sondage invert run.toml spectrum.csv -o result.h5
+  sondage invert run.toml spectrum.csv -o result.h5 --seed 7 --max-steps 20000 --workers 2
+  sondage invert run.toml spectrum.csv -o result.h5 --resume --max-steps 40000
+  sondage invert run.toml data.h5:/detector1/counts -o result.h5 --force
+"""
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("run_file", metavar="RUN.toml", help="run file with a [fit] table")
+    parser.add_argument("spectrum", metavar="SPECTRUM",
+                        help="measured spectrum: text/CSV file or file.h5:/dataset")
+    parser.add_argument("-o", "--output", required=True, metavar="RESULT.h5",
+                        help="HDF5 result file to write (never overwritten without --force)")
+    parser.add_argument("--seed", type=int, default=0,
+                        help="random seed; the same seed gives identical samples (default 0)")
+    parser.add_argument("--max-steps", type=int, default=None, metavar="N",
+                        help="total steps in the chain, earlier segments included "
+                             "(default: fit.max_steps, 20000)")
+    parser.add_argument("--workers", type=int, default=DEFAULT_WORKERS, metavar="N",
+                        help="processes evaluating the model (default: "
+                             f"{DEFAULT_WORKERS}, measured to pay on 2 cores; see the README's [fit] section)")
+    mode = parser.add_mutually_exclusive_group()
+    mode.add_argument("--resume", action="store_true",
+                      help="continue the chain stored in the result file")
+    mode.add_argument("--force", action="store_true",
+                      help="replace an existing result file")
+
+
+def run(args) -> int:
+    """Invert, print the summary (and, even with --quiet, a loud not-converged warning);
+    return 0, or 130 when the run was interrupted."""
+    from .._api import invert_reporting
+
+    command = "sondage invert " + " ".join(
+        shlex.quote(a) for a in [args.run_file, args.spectrum, "-o", args.output]
+        + (["--seed", str(args.seed)])
+        + (["--max-steps", str(args.max_steps)] if args.max_steps is not None else [])
+        + ["--workers", str(args.workers)]
+        + (["--resume"] if args.resume else []) + (["--force"] if args.force else []))
+    result = invert_reporting(args.run_file, args.spectrum, args.output, seed=args.seed,
+                              max_steps=args.max_steps, resume=args.resume, force=args.force,
+                              workers=args.workers, command=command,
+                              quiet=bool(getattr(args, "quiet", False)))
+    return 130 if bool(result.diagnostics.get("interrupted", False)) else 0

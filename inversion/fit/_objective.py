@@ -1,0 +1,435 @@
+"""The objective: data, forward model and noise model joined into log-prior, log-likelihood
+and log-posterior, and :meth:`Objective.predict`, the one way to turn parameters into expected
+counts (the likelihood, the predictive spectra and the bands all use it).  It knows nothing
+about walkers, moves or files (see :mod:`inversion.sample`).
+
+The objective pickles cheaply: it carries the checked run, the counts and the checked ``[fit]``
+table, never the forward model, which each process builds once (:class:`ModelBuilder`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+from scipy.special import gammaln, xlogy
+
+import forward
+from forward import InputError
+
+from . import _derived
+from ._profiles import LayerStack, NodeProfile, stick_breaking
+from ._roles import Role
+from ._spec import FitSpec
+
+__all__ = ["Objective", "ModelBuilder"]
+
+
+class ModelBuilder:
+    """Build the run's forward model; pickled to worker processes instead of the model.
+
+    Parameters
+    ----------
+    run_text : str
+        The run file's text (parsed only if no ``run`` is given).
+    source : str
+        The run file's path (for messages).
+    n_channels : int
+        Channels of the measured spectrum.
+    base_dir : str, optional
+        Folder against which paths inside the run file are resolved.
+    depth_limit_1e15 : float, optional
+        Depth of the slice grid (default: the forward model's own choice).
+    first_channel : int
+        Channels below this one are not computed (see :class:`forward.ForwardModel`).
+    run : forward.Run, optional
+        The run, already parsed and checked (then never parsed again, here or in a worker).
+    """
+
+    def __init__(self, run_text: str, source: str, n_channels: int, base_dir=None,
+                 depth_limit_1e15=None, first_channel: int = 0, *, run=None):
+        self.run_text = run_text
+        self.source = str(source)
+        self.n_channels = int(n_channels)
+        self.base_dir = None if base_dir is None else str(base_dir)
+        self.depth_limit_1e15 = depth_limit_1e15
+        self.first_channel = int(first_channel)
+        self._run = run
+
+    @classmethod
+    def for_run(cls, run, n_channels: int, *, depth_limit_1e15=None,
+                first_channel: int = 0) -> "ModelBuilder":
+        """The builder of a parsed run."""
+        return cls(run.text, run.source, n_channels, base_dir=getattr(run, "base_dir", None),
+                   depth_limit_1e15=depth_limit_1e15, first_channel=first_channel, run=run)
+
+    def run(self):
+        """The run (parsed from the text once, if it was not given)."""
+        if self._run is None:
+            self._run = forward.parse_run(self.run_text, source=self.source,
+                                          base_dir=self.base_dir)
+        return self._run
+
+    def __call__(self):
+        return forward.ForwardModel(self.run(), n_channels=self.n_channels,
+                                    depth_limit_1e15=self.depth_limit_1e15,
+                                    first_channel=self.first_channel)
+
+    def full_range(self) -> "ModelBuilder":
+        """The same builder computing every channel (for predictive spectra over the whole
+        spectrum, not only the fit window)."""
+        return ModelBuilder(self.run_text, self.source, self.n_channels, self.base_dir,
+                            self.depth_limit_1e15, first_channel=0, run=self._run)
+
+
+@dataclasses.dataclass
+class _Draw:
+    """One parameter vector turned into the profile's parameters, the nuisance and the
+    background levels."""
+
+    thickness: np.ndarray
+    mixing: np.ndarray
+    compositions: np.ndarray
+    node_params: np.ndarray
+    nuisance: object
+    background: np.ndarray  # (2,) levels
+
+
+class _Profiles:
+    """The fit's profile construction on one model's slice grid."""
+
+    def __init__(self, spec: FitSpec, edges_1e15):
+        self.edges_1e15 = np.asarray(edges_1e15, dtype=float)
+        layers = spec.layers
+        if spec.profile == "layers":
+            self.stack = LayerStack(self.edges_1e15, len(spec.species), len(layers),
+                                    layers[-1].substrate)
+            self.nodes = None
+        else:
+            n = spec.nodes
+            self.stack = None
+            self.nodes = NodeProfile(self.edges_1e15, len(spec.species), n["columns"],
+                                     n["count"], n["depth_1e15"], n["below"])
+
+    def fractions(self, draw: _Draw) -> np.ndarray:
+        if self.stack is not None:
+            return self.stack.fractions(draw.thickness, draw.mixing, draw.compositions)
+        return self.nodes.fractions(draw.node_params)
+
+
+class Objective:
+    """Log-prior, log-likelihood and log-posterior of the free parameters.
+
+    Parameters
+    ----------
+    spec : FitSpec
+        The checked ``[fit]`` table (free parameters and priors).
+    counts : array_like of int, shape (n_channels,)
+        Measured counts per channel.
+    build_model : callable
+        ``build_model() -> forward.ForwardModel``; pickled to workers instead of the model.
+    model : forward.ForwardModel, optional
+        An already built model, used in this process.
+    measured : array_like of bool, optional
+        False for channels the spectrum file does not hold; they never enter the likelihood.
+    likelihood : bool
+        False switches the likelihood off (the posterior is then the prior; used in tests).
+    """
+
+    def __init__(self, spec: FitSpec, counts, build_model, model=None, *, measured=None,
+                 likelihood=True):
+        self.spec = spec
+        self.counts = np.asarray(counts)
+        if self.counts.ndim != 1 or np.any(self.counts < 0) or np.any(
+                self.counts != np.round(self.counts)):
+            raise InputError("counts must be one row of non-negative whole numbers",
+                             where="spectrum")
+        self.counts = self.counts.astype(np.float64)
+        self.measured = (np.ones(self.counts.size, dtype=bool) if measured is None
+                         else np.asarray(measured, dtype=bool))
+        self.build_model = build_model
+        self.use_likelihood = bool(likelihood)
+        self._model = model
+        self._setup()
+
+    # ----- pickling: never ship the model -----
+    def __getstate__(self):
+        state = self.__dict__.copy()
+        state["_model"] = None
+        for key in ("_profiles", "_whole"):
+            state.pop(key, None)
+        return state
+
+    def __setstate__(self, state):
+        self.__dict__.update(state)
+        self._profiles = _Profiles(self.spec, self.edges_1e15)
+
+    @property
+    def model(self):
+        if self._model is None:
+            self._model = self.build_model()
+        return self._model
+
+    # ----- set-up -----
+    def _setup(self):
+        model = self.model
+        spec = self.spec
+        if self.counts.size != len(model.channel_energy_keV()):
+            raise InputError(f"the spectrum has {self.counts.size} channels but the model "
+                             f"{len(model.channel_energy_keV())}", where="spectrum")
+        self.edges_1e15 = np.asarray(model.grid.edges_1e15, dtype=float)
+        self.widths_1e15 = np.diff(self.edges_1e15)
+        self.default_nuisance = model.default_nuisance()
+        self.species_element = np.asarray(model.species_element, dtype=int)
+        layers = spec.layers
+        self.substrate = layers[-1].substrate
+        self.base_thickness = np.array([L.areal_density_1e15 for L in layers if not L.substrate],
+                                       dtype=float)
+        self.n_interfaces = len(layers) - 1 if self.substrate else len(layers)
+        self.base_compositions = np.array([L.composition for L in layers])
+        self.names = spec.names
+        self.ndim = len(spec.parameters)
+        self._profiles = _Profiles(spec, self.edges_1e15)
+        self.mask = self._window() & self.measured
+        if not self.mask.any():
+            raise InputError("empty channel window: no measured channel inside it",
+                             where=f"{self.spec.source}: fit.windows")
+        self.channels = np.flatnonzero(self.mask)
+        k = self.counts[self.mask]
+        self._k = k
+        self._log_k_factorial = float(np.sum(gammaln(k + 1.0)))
+        lo, hi = self.channels[0], self.channels[-1]
+        self._bg_ramp = (self.channels - lo) / max(hi - lo, 1)
+
+    def _window(self):
+        spec = self.spec
+        n = self.counts.size
+        mask = np.zeros(n, dtype=bool)
+        if spec.windows:
+            for first, last in spec.windows:
+                if last >= n:
+                    raise InputError(f"window [{first}, {last}] outside the spectrum's channels "
+                                     f"0..{n - 1}", where=f"{self.spec.source}: fit.windows")
+                mask[first:last + 1] = True
+            return mask
+        model = self.model
+        nu = self.default_nuisance
+        expected = model.expected_counts(model.layer_fractions(), nu)
+        above = np.flatnonzero(expected > spec.count_threshold)
+        if above.size == 0:
+            raise InputError(f"empty channel window: the run's own sample expects no channel "
+                             f"above {spec.count_threshold:g} counts; lower the threshold or "
+                             "give fit.windows", where=f"{self.spec.source}: fit.count_threshold")
+        energy = np.asarray(model.channel_energy_keV(nu))
+        kev_per_channel = abs(float(np.median(np.diff(energy))))
+        fwhm_channels = int(math.ceil(float(nu.fwhm_keV) / kev_per_channel))
+        lo = int(above[0])
+        if self.substrate:
+            # the slice grid ends at the depth limit: keep clear of that artificial edge
+            lo += 3 * fwhm_channels
+        hi = int(above[-1]) + 5 * fwhm_channels
+        lo, hi = max(lo, 0), min(hi, n - 1)
+        if lo > hi:
+            raise InputError("empty channel window after the margins; give fit.windows",
+                             where=f"{self.spec.source}: fit.windows")
+        mask[lo:hi + 1] = True
+        return mask
+
+    # ----- parameters to model inputs -----
+    def _draw(self, theta) -> _Draw | None:
+        """Free parameters to profile parameters, nuisance and background levels; None
+        outside the physical limits."""
+        index = self.spec.index
+        theta = np.asarray(theta, dtype=float)
+        for role in index.roles:
+            if role.outside(theta[index[role][0]]):
+                return None
+        thickness = self.base_thickness.copy()
+        mixing = np.zeros(self.n_interfaces)
+        compositions = self.base_compositions
+        node_params = np.empty(0)
+        background = np.zeros(2)
+        fields = {role.field: np.array(getattr(self.default_nuisance, role.field), dtype=float,
+                                       copy=True)
+                  for role in Role if role.per_element}
+        for role in index.roles:
+            pos, target = index[role]
+            if role is Role.AREAL_DENSITY:
+                thickness[target] = theta[pos]
+            elif role is Role.MIXING:
+                mixing[target] = theta[pos]
+            elif role is Role.SHARE:
+                compositions = self._shared(theta, pos, target)
+            elif role is Role.NODE:
+                node_params = np.empty(pos.size)
+                node_params[target] = theta[pos]
+            elif role is Role.BACKGROUND:
+                background[target] = theta[pos]
+            elif role.per_element:
+                fields[role.field][target] = theta[pos]
+            else:
+                fields[role.field] = theta[pos[0]]
+        nuisance = dataclasses.replace(self.default_nuisance, **fields)
+        return _Draw(thickness, mixing, compositions, node_params, nuisance, background)
+
+    def _shared(self, theta, positions, targets):
+        comps = self.base_compositions.copy()
+        for layer, columns in self.spec.share_species.items():
+            comps[layer] = 0.0
+            comps[layer, columns] = stick_breaking(theta[positions[targets == layer]])
+        return comps
+
+    def _window_background(self, draw: _Draw) -> np.ndarray:
+        """Background counts per window channel."""
+        kind = self.spec.background
+        levels = draw.background
+        if kind == "flat":
+            return np.full(self.channels.size, levels[0])
+        if kind == "linear":
+            return levels[0] + (levels[1] - levels[0]) * self._bg_ramp
+        return np.zeros(self.channels.size)
+
+    def unpack(self, theta):
+        """Free parameters to ``(fractions, nuisance, background)``; None outside physical limits.
+
+        Returns
+        -------
+        fractions : ndarray (n_slices, n_species)
+        nuisance : forward.Nuisance
+        background : ndarray (n_window_channels,) counts per channel
+        """
+        draw = self._draw(theta)
+        if draw is None:
+            return None
+        return self._profiles.fractions(draw), draw.nuisance, self._window_background(draw)
+
+    def compositions(self, theta):
+        """Layer compositions (n_layers, n_species) for this draw (free shares applied)."""
+        theta = np.asarray(theta, dtype=float)
+        slots = self.spec.index.get(Role.SHARE)
+        if slots is None:
+            return self.base_compositions.copy()
+        return self._shared(theta, *slots)
+
+    def profile(self, theta):
+        """The fraction table (n_slices, n_species) for one draw."""
+        state = self.unpack(theta)
+        if state is None:
+            raise ValueError("parameters outside their physical limits")
+        return state[0]
+
+    # ----- predictions -----
+    def _whole_range(self):
+        """(model, profiles) computing every channel: the fit's own model, or, when that one
+        skips the channels below the fit window, a second model of the same run."""
+        if not (getattr(self.model, "first_channel", 0)
+                and hasattr(self.build_model, "full_range")):
+            return self.model, self._profiles
+        whole = self.__dict__.get("_whole")
+        if whole is None:
+            model = self.build_model.full_range()()
+            whole = self._whole = (model, _Profiles(self.spec, model.grid.edges_1e15))
+        return whole
+
+    def predict(self, theta, channels=None, *, per_species=False):
+        """Expected counts for one parameter vector.
+
+        Parameters
+        ----------
+        theta : array_like
+            The free parameters.
+        channels : None, "all" or array of int
+            None: the likelihood's window channels; ``"all"``: every channel from 0; or the
+            channels listed.
+        per_species : bool
+            One row per species (model counts only, no background).
+
+        Returns
+        -------
+        numpy.ndarray or None
+            ``(n,)`` counts (model, clipped at zero, plus background), or ``(n_species, n)``;
+            None outside the physical limits.
+        """
+        draw = self._draw(theta)
+        if draw is None:
+            return None
+        if channels is None:
+            model, profiles = self.model, self._profiles
+            rows = self.mask
+        else:
+            model, profiles = self._whole_range()
+            rows = slice(None) if isinstance(channels, str) and channels == "all" else \
+                np.asarray(channels, dtype=int)
+        fractions = profiles.fractions(draw)
+        if per_species:
+            parts = np.asarray(model.expected_counts(fractions, draw.nuisance,
+                                                     per_species=True), dtype=float)
+            return np.maximum(parts, 0.0)[:, rows]
+        mu = np.asarray(model.expected_counts(fractions, draw.nuisance))
+        if channels is None:
+            # the kernel's channel integrals are differences of large numbers: clip the
+            # round-off (|mu| ~ 1e-12 counts) below zero, which no Poisson mean can be
+            return np.maximum(mu[rows], 0.0) + self._window_background(draw)
+        mu = np.maximum(mu.astype(float), 0.0)
+        mu[self.mask] += self._window_background(draw)
+        return mu[rows]
+
+    def expected(self, theta, *, per_species=False):
+        """Expected counts in the window channels for ``theta`` (None outside the limits);
+        see :meth:`predict`."""
+        return self.predict(theta, per_species=per_species)
+
+    def channel_energy_keV(self, theta) -> np.ndarray:
+        """Channel-centre energies (keV) at this draw's calibration."""
+        draw = self._draw(theta)
+        return np.asarray(self.model.channel_energy_keV(draw.nuisance))
+
+    # ----- the three log densities -----
+    def log_prior(self, theta) -> float:
+        """Sum of the parameters' log prior densities (-inf outside any support)."""
+        total = 0.0
+        for value, p in zip(theta, self.spec.parameters):
+            lp = p.prior.logpdf(value)
+            if lp == -math.inf or lp != lp:
+                return -np.inf
+            total += float(lp)
+        return total
+
+    def log_likelihood(self, theta) -> float:
+        """Poisson log-likelihood of the counts in the window (zeros included).
+
+        ``sum_i [k_i ln(mu_i) - mu_i - ln(k_i!)]`` over the window channels.
+        """
+        if not self.use_likelihood:
+            return 0.0
+        mu = self.predict(theta)
+        if mu is None or not np.all(np.isfinite(mu)) or np.any(mu < 0):
+            return -np.inf
+        value = float(np.sum(xlogy(self._k, mu) - mu)) - self._log_k_factorial
+        return value if math.isfinite(value) else -np.inf
+
+    def log_posterior(self, theta) -> float:
+        """log_prior + log_likelihood; -inf before the model runs when outside the prior."""
+        lp = self.log_prior(theta)
+        if not np.isfinite(lp):
+            return -np.inf
+        return lp + self.log_likelihood(theta)
+
+    __call__ = log_posterior
+
+    # ----- derived quantities, one draw at a time (inversion.fit._derived) -----
+    def derived_names(self):
+        """Names, units and notes of the derived quantities (see :meth:`derived`)."""
+        return _derived.derived_names(self)
+
+    def derived(self, theta):
+        """Derived quantities for one draw, in the order of :meth:`derived_names`."""
+        return _derived.derived_values(self, theta)
+
+    def node_fractions(self, theta):
+        """The node profile's fraction table (free-form profile only)."""
+        slots = self.spec.index[Role.NODE]
+        params = np.empty(slots[0].size)
+        params[slots[1]] = np.asarray(theta, dtype=float)[slots[0]]
+        return self._profiles.nodes.fractions(params)

@@ -1,0 +1,153 @@
+"""Parameter roles: what a free parameter sets, and the physical limits it must respect.
+
+Every free parameter has one :class:`Role`.  The objective never dispatches on names or
+strings: :class:`RoleIndex` gathers, once per fit, the positions in the parameter vector and
+the targets (layer, interface, element, node, background term) of every role, so turning a
+parameter vector into model inputs is a handful of array assignments.
+
+A new nuisance joins with one enum member here (the field of :class:`forward.Nuisance` it
+sets, its physical limit) and one line in :data:`NUISANCES` (its name, unit and default prior).
+"""
+
+from __future__ import annotations
+
+import enum
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._priors import Prior, make_prior
+
+__all__ = ["Role", "NuisanceKind", "NUISANCES", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD",
+           "RoleIndex"]
+
+#: Relative sd of the per-element stopping scale prior.  Placeholder until the measured spread
+#: of our helium stopping against NIST ASTAR (benchmarks/RESULTS.md) is available.
+DEFAULT_STOPPING_SD = 0.03
+
+
+class Role(enum.Enum):
+    """What a free parameter sets.
+
+    Each member carries ``(key, lower, upper, field, per_element)``: a value below ``lower``
+    (at or below it where ``upper`` is None and the limit is strict, see :attr:`strict`) or
+    above ``upper`` lies outside the physical limits, where the log-posterior is minus infinity
+    before the model runs; ``field`` names the :class:`forward.Nuisance` attribute a nuisance
+    sets (an array over the elements when ``per_element``).
+    """
+
+    #: a layer's areal density (1e15 atoms/cm2), >= 0; target: layer above the substrate
+    AREAL_DENSITY = ("areal_density", 0.0, None, None, False)
+    #: an interface's mixing width (1e15 atoms/cm2), >= 0; target: interface
+    MIXING = ("mixing", 0.0, None, None, False)
+    #: a stick-breaking share of a free composition, in (0, 1); target: layer
+    SHARE = ("share", 0.0, 1.0, None, False)
+    #: a node log-ratio or step of the free-form profile, unlimited; target: node parameter
+    NODE = ("node", None, None, None, False)
+    #: nuisances: > 0 except the calibration offset
+    FLUENCE_SCALE = ("fluence_scale", 0.0, None, "fluence_scale", False)
+    GAIN = ("gain_keV", 0.0, None, "gain_keV", False)
+    OFFSET = ("offset_keV", None, None, "offset_keV", False)
+    FWHM = ("fwhm_keV", 0.0, None, "fwhm_keV", False)
+    STOPPING = ("stopping", 0.0, None, "stopping_scale", True)
+    #: background level (counts/channel), >= 0; target: 0 (flat or low end), 1 (high end)
+    BACKGROUND = ("background", 0.0, None, None, False)
+
+    def __init__(self, key, lower, upper, field, per_element):
+        self.key = key
+        self.lower = lower
+        self.upper = upper
+        self.field = field
+        self.per_element = per_element
+
+    @property
+    def strict(self) -> bool:
+        """True when the lower limit itself is outside (a nuisance scale or a share)."""
+        return self.field is not None or self.upper is not None
+
+    @property
+    def is_nuisance(self) -> bool:
+        return self.field is not None
+
+    @property
+    def is_sample(self) -> bool:
+        """Sets the depth profile (not a nuisance, not the background)."""
+        return self.field is None and self is not Role.BACKGROUND
+
+    def outside(self, values) -> bool:
+        """True if any of ``values`` (an array) lies outside this role's physical limits.
+
+        A NaN is outside an interval (a share) but passes a one-sided limit; the prior gate
+        of the objective refuses it before the limits are asked.
+        """
+        if self.upper is not None:
+            return not np.all((values > self.lower) & (values < self.upper))
+        if self.lower is None:
+            return False
+        return bool(np.any(values <= self.lower) if self.strict else np.any(values < self.lower))
+
+
+@dataclass(frozen=True)
+class NuisanceKind:
+    """A nuisance every fit marginalises unless the run file fixes it.
+
+    Attributes
+    ----------
+    role : Role
+    name : str
+        Parameter name; ``{element}`` is replaced for a per-element nuisance.
+    unit : str
+    default_prior : callable
+        ``default_prior(value) -> Prior`` from the run file's value.
+    """
+
+    role: Role
+    name: str
+    unit: str
+    default_prior: object
+
+    def prior(self, value: float) -> Prior:
+        return self.default_prior(value)
+
+
+#: the nuisances, in the order their parameters take (README.md, "Quantities that can be free")
+NUISANCES = (
+    NuisanceKind(Role.FLUENCE_SCALE, "fluence_scale", "",
+                 lambda v: make_prior("normal", v, 0.05)),
+    NuisanceKind(Role.GAIN, "gain_keV", "keV/channel",
+                 lambda v: make_prior("normal", v, 0.005 * abs(v))),
+    NuisanceKind(Role.OFFSET, "offset_keV", "keV", lambda v: make_prior("normal", v, 2.0)),
+    NuisanceKind(Role.FWHM, "fwhm_keV", "keV", lambda v: make_prior("normal", v, 0.10 * v)),
+    NuisanceKind(Role.STOPPING, "stopping.{element}", "",
+                 lambda v: make_prior("normal", 1.0, DEFAULT_STOPPING_SD)),
+)
+#: names of the scalar nuisances (``stopping.<El>`` for every element comes on top)
+NUISANCE_NAMES = tuple(k.name for k in NUISANCES if not k.role.per_element)
+
+
+class RoleIndex:
+    """Where each role's parameters sit in the parameter vector, and what they set.
+
+    ``index[role]`` is ``(positions, targets)``: integer arrays, in parameter order.  Roles
+    without parameters are absent.
+    """
+
+    def __init__(self, parameters):
+        pos: dict = {}
+        for i, p in enumerate(parameters):
+            pos.setdefault(p.role, ([], []))
+            pos[p.role][0].append(i)
+            pos[p.role][1].append(p.target)
+        self._slots = {role: (np.array(a, dtype=np.intp), np.array(b, dtype=np.intp))
+                       for role, (a, b) in pos.items()}
+        #: the roles present, in declaration order (limits are checked in this order)
+        self.roles = tuple(r for r in Role if r in self._slots)
+
+    def __contains__(self, role: Role) -> bool:
+        return role in self._slots
+
+    def __getitem__(self, role: Role):
+        return self._slots[role]
+
+    def get(self, role: Role, default=None):
+        return self._slots.get(role, default)

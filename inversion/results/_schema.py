@@ -1,0 +1,118 @@
+"""The layouts of the result file and the series file: every dataset name, in one place.
+
+The README's "Result file (HDF5)" and "The series result file" sections are the public contract;
+this module is its one copy in the code.  Writers build their trees with these names and the
+units and descriptions below; readers look them up here.  A new dataset is one entry in
+:data:`DATASETS` (its path, unit and description) and one line in the writer that fills it;
+the reader picks it up without a change, since it reads whole groups.
+
+Summaries use one vocabulary everywhere in the code, :data:`STATS`: ``median``, ``mean``,
+``sd``, ``low68``, ``high68``, ``low95``, ``high95`` (the result file's own names).  Two
+outputs spell them differently, and the mapping lives here only: the series file
+(:data:`SERIES_STAT_NAMES`, ``lo68``...) and summary.csv (:data:`CSV_STAT_COLUMNS`,
+``lower_68``...).
+"""
+
+from __future__ import annotations
+
+__all__ = ["FORMAT_VERSION", "QUANTILES", "STATS", "INTERVAL_NOTE", "MCMC", "FINAL_GROUPS",
+           "INPUT_RUN", "INPUT_SPECTRUM", "INPUT_MEASURED", "INPUT_PRIORS", "START",
+           "SAMPLES", "LOG_POSTERIOR", "POSTERIOR_PRIORS", "SUMMARY", "DERIVED", "PROFILE",
+           "SPECTRUM", "DIAGNOSTICS", "DATASETS", "attrs_of", "SERIES_KIND",
+           "SERIES_STAT_NAMES", "series_name", "CSV_STAT_COLUMNS", "SERIES_MEMBERS_TABLE",
+           "SERIES_MEMBERS_LINKS", "SERIES_MEMBERS_SUMMARY", "SERIES_DIFFUSION",
+           "SERIES_ARRHENIUS", "SERIES_COMPARISON", "SERIES_COMPARISON_STATS"]
+
+#: written as the root attribute ``format_version`` of both kinds of file; a file without it
+#: is version 1 (same layout, written before the attribute existed)
+FORMAT_VERSION = 2
+
+#: quantiles (fractions) of every band and predictive spectrum: 2.5, 16, 50, 84, 97.5 %
+QUANTILES = (0.025, 0.16, 0.5, 0.84, 0.975)
+
+#: the one summary vocabulary: central intervals low68/high68 = 16/84 %, low95/high95 = 2.5/97.5 %
+STATS = ("median", "mean", "sd", "low68", "high68", "low95", "high95")
+INTERVAL_NOTE = "central: low68/high68 = 16/84 %, low95/high95 = 2.5/97.5 % quantiles"
+
+# ----- the result file -----
+MCMC = "mcmc"                        # emcee's backend layout plus the resume slots
+INPUT_RUN = "input/run"
+INPUT_SPECTRUM = "input/spectrum"
+INPUT_MEASURED = "input/measured"
+INPUT_PRIORS = "input/priors"
+START = "start"                      # attributes only: theta, names, log_posterior, method
+SAMPLES = "posterior/samples"
+LOG_POSTERIOR = "posterior/log_posterior"
+POSTERIOR_PRIORS = "posterior/priors"
+SUMMARY = "posterior/summary"
+DERIVED = "derived"
+PROFILE = "profile"
+SPECTRUM = "spectrum"
+DIAGNOSTICS = "diagnostics"
+#: groups written at the end of a run, staged and swapped into place together
+FINAL_GROUPS = ("posterior", DERIVED, PROFILE, SPECTRUM, DIAGNOSTICS)
+
+#: dataset -> (unit, description) for the attributes the writer puts beside the data;
+#: ``{species}`` and ``{name}`` stand for one dataset per species or derived quantity
+DATASETS = {
+    INPUT_RUN: (None, None),
+    INPUT_SPECTRUM: ("counts", "measured counts per channel, channel 0 first"),
+    INPUT_MEASURED: (None, None),
+    INPUT_PRIORS: (None, None),
+    SAMPLES: (None, "posterior draws after burn-in (discard) and thinning, walkers flattened"),
+    LOG_POSTERIOR: ("natural log", None),
+    POSTERIOR_PRIORS: (None, None),
+    "derived/{name}": (None, None),           # unit and note given per quantity
+    "profile/depth": ("1e15 atoms/cm2", "slice centres"),
+    "profile/depth_nm": ("nm", "slice centres, converted with the run file's layer densities"),
+    "profile/{species}": ("atom fraction", None),
+    "profile/{species}_map": ("atom fraction", "highest-posterior draw"),
+    "spectrum/channel": (None, None),
+    "spectrum/counts": ("counts", None),
+    "spectrum/window": (None, "channels in the likelihood"),
+    "spectrum/energy_keV": ("keV", "channel energies at the highest-posterior draw's "
+                                   "calibration"),
+    "spectrum/predictive": ("counts", "posterior predictive, Poisson noise included"),
+    "spectrum/model_median": ("counts", None),
+    "spectrum/species/{species}": ("counts", "median model, this species"),
+    "diagnostics/autocorr_time": ("steps", None),
+    "diagnostics/acceptance": (None, "acceptance fraction per walker"),
+    "diagnostics/ess": (None, "effective sample size: steps x walkers / tau"),
+}
+
+
+def attrs_of(key: str, **extra) -> dict:
+    """The attributes a dataset of :data:`DATASETS` is written with, plus ``extra``."""
+    unit, description = DATASETS[key]
+    out = {}
+    if unit is not None:
+        out["unit"] = unit
+    if description is not None:
+        out["description"] = description
+    out.update(extra)
+    return out
+
+
+# ----- the series file -----
+SERIES_KIND = "series"               # the root attribute ``kind``
+SERIES_MEMBERS_TABLE = "members/table"
+SERIES_MEMBERS_LINKS = "members/links"
+SERIES_MEMBERS_SUMMARY = "members/summary"
+SERIES_DIFFUSION = "diffusion"
+SERIES_ARRHENIUS = "arrhenius"
+SERIES_COMPARISON = "comparison"
+#: statistics stored per comparison row, in the code's vocabulary
+SERIES_COMPARISON_STATS = ("median", "low95", "high95")
+
+#: the series file's documented spelling of the summary statistics
+SERIES_STAT_NAMES = {"median": "median", "mean": "mean", "sd": "sd", "low68": "lo68",
+                     "high68": "hi68", "low95": "lo95", "high95": "hi95"}
+
+#: summary.csv's column of each statistic
+CSV_STAT_COLUMNS = {"median": "median", "mean": "mean", "sd": "sd", "low68": "lower_68",
+                    "high68": "upper_68", "low95": "lower_95", "high95": "upper_95"}
+
+
+def series_name(stat: str) -> str:
+    """The series file's name of a statistic of :data:`STATS` (``low68`` -> ``lo68``)."""
+    return SERIES_STAT_NAMES[stat]

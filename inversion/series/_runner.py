@@ -1,0 +1,226 @@
+"""Running a series: every member inverted on dask.distributed, each into its own resumable
+result file, then the statistics and the report.
+
+Member k (0-based, in file order) uses seed ``seed + 1000 k``; its result file is
+``<series stem>.members/<label>.h5``.  Each member is one task submitted with ``retries=2``: a
+worker that dies loses nothing that was written; its task runs again elsewhere and resumes
+the member's own file.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+from pathlib import Path
+
+import forward
+from forward import InputError
+
+from ..results._outputs import WriterLock, check_output, spectrum_file
+from ..results._store import read_head
+from ._file import Series, interface_names, member_path, member_run
+from ._seriesfile import set_series_attrs, write_members, write_statistics
+from ._statistics import series_statistics
+
+__all__ = ["run_series", "invert_member", "member_state", "member_path"]
+
+
+def member_state(path) -> str:
+    """``"missing"``, ``"finished"``, ``"partial"`` (resumable) or ``"broken"`` (restart)."""
+    path = Path(path)
+    if not path.exists():
+        return "missing"
+    try:
+        attrs, parts = read_head(path)
+    except InputError:
+        return "broken"
+    status = str(attrs.get("status", ""))
+    if "finished" in attrs and "posterior" in parts and status not in ("running",
+                                                                       "interrupted"):
+        return "finished"
+    return "partial" if "input" in parts else "broken"
+
+
+def invert_member(payload: dict) -> dict:
+    """Invert one member (runs on a dask worker).
+
+    A finished member file is left alone; a partial one is resumed (so a worker that dies
+    mid-chain loses at most the steps since the last write); an unreadable one is restarted.
+
+    Parameters
+    ----------
+    payload : dict
+        ``label``, ``run_path``, ``overrides``, ``where``, ``spectrum``, ``member_path``,
+        ``seed``, ``max_steps``.
+
+    Returns
+    -------
+    dict
+        ``label``, ``path`` and ``state`` before the call.
+    """
+    from .._api import invert
+
+    out = Path(payload["member_path"])
+    state = member_state(out)
+    if state != "finished":
+        run = forward.load_run(payload["run_path"])
+        if payload["overrides"]:
+            run = run.with_overrides(payload["overrides"], source=payload["where"])
+        out.parent.mkdir(parents=True, exist_ok=True)
+        invert(run, payload["spectrum"], out, seed=int(payload["seed"]),
+               max_steps=payload["max_steps"], resume=state == "partial",
+               force=state == "broken", progress=False,
+               command=f"sondage series member {payload['label']}")
+    return {"label": payload["label"], "path": str(out), "state": state}
+
+
+def _payloads(series: Series, output: Path, seed: int, max_steps):
+    out = []
+    for m in series.members:
+        out.append({"label": m.label, "run_path": str(series.run_path),
+                    "overrides": m.overrides, "where": f"{series.source}: member[{m.label}]",
+                    "spectrum": m.spectrum, "member_path": str(member_path(output, m.label)),
+                    "seed": int(seed) + 1000 * m.index,
+                    "max_steps": max_steps if max_steps is not None else series.max_steps})
+    return out
+
+
+def run_series(series: Series, output, *, scheduler: str | None = None, workers: int = 2,
+               resume: bool = False, force: bool = False, seed: int = 0,
+               max_steps: int | None = None, task=None, progress: bool = True,
+               report: bool = True, arrhenius_steps: int = 3000, check_inputs: bool = True):
+    """Invert every member of a series on dask.distributed, then the series statistics.
+
+    Parameters
+    ----------
+    series : Series
+    output : path
+        The series result file (HDF5).  Member files go to ``<stem>.members/<label>.h5``.
+    scheduler : str, optional
+        Address of a running dask scheduler (``tcp://host:port``); default a local cluster of
+        ``workers`` processes with one thread each.
+    workers : int
+        Worker processes of the local cluster.
+    resume : bool
+        Keep finished member files, resume partial ones.
+    force : bool
+        Replace an existing series file and member files.
+    seed : int
+        Base seed; member k uses ``seed + 1000 k``; the statistics use ``seed``.
+    max_steps : int, optional
+        Chain length per member (default: the series file's, else the run file's).
+    task : callable, optional
+        ``task(payload) -> dict`` run per member (default :func:`invert_member`).
+    progress : bool
+        A progress bar across members on stderr.
+    report : bool
+        Write the figures and summary.md into ``<stem>.report/``.
+    arrhenius_steps : int
+        emcee steps of the Arrhenius fit.
+    check_inputs : bool
+        Check every member's run overrides and spectrum here before submitting.
+
+    Returns
+    -------
+    Path
+        The series result file.
+    """
+    output = Path(output)
+    workers = int(workers)
+    if workers < 1:
+        raise InputError(f"workers must be at least 1, got {workers}", where="--workers")
+
+    inputs = {"series file": series.source, "run-file template": series.run_path,
+              **{f"spectrum of member {m.label}": spectrum_file(m.spectrum)
+                 for m in series.members}}
+    check_output(output, inputs=inputs, force=True, resume=True, kind="series file")
+    if output.exists() and not (resume or force):
+        raise InputError("series file exists; add --resume to continue it or --force to replace "
+                         "it", where=str(output))
+    with WriterLock(output):
+        return _run_series_locked(series, output, scheduler=scheduler, workers=workers,
+                                  resume=resume, force=force, seed=seed, max_steps=max_steps,
+                                  task=task, progress=progress, report=report,
+                                  arrhenius_steps=arrhenius_steps, check_inputs=check_inputs)
+
+
+def _run_series_locked(series, output, *, scheduler, workers, resume, force, seed, max_steps,
+                       task, progress, report, arrhenius_steps, check_inputs):
+    """The body of :func:`run_series`, run while holding the series file's writer lock."""
+    from dask.distributed import Client, LocalCluster, as_completed
+
+    if check_inputs:
+        # everything a member's inversion would refuse, refused here, before any cluster starts
+        # (one clear error instead of worker failures and a lost run)
+        from .._api import prepare
+
+        name_nm, name_areal = interface_names(series)
+        for m in series.members:
+            run_m, spectrum_m = member_run(series, m), forward.read_spectrum(m.spectrum)
+            if task not in (None, invert_member):  # a stand-in task: no inversion to check
+                continue
+            _, objective = prepare(run_m, spectrum_m)
+            spec = objective.spec
+            if name_areal not in objective.derived_names()[0] or (
+                    spec.profile == "layers" and name_areal not in spec.names):
+                raise InputError(f"the template's [fit] table does not free the mixing width "
+                                 f"of interface {series.interface} ({name_areal}); free it, "
+                                 f"e.g. \"{name_areal}\" = true",
+                                 where=f"{series.source}: series.interface")
+    if force:
+        for m in series.members:
+            p = member_path(output, m.label)
+            if p.exists():
+                p.unlink()
+    task = task or invert_member
+    payloads = _payloads(series, output, seed, max_steps)
+    member_path(output, "x").parent.mkdir(parents=True, exist_ok=True)
+    todo = [p for p in payloads if member_state(p["member_path"]) != "finished"]
+    write_members(output, series, seed=seed, status="running",
+                  member_files=[member_path(output, m.label) for m in series.members])
+
+    t_start = time.perf_counter()
+    if todo:
+        cluster = None
+        if scheduler:
+            client = Client(scheduler, timeout="20s")
+        else:
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                   dashboard_address=None, host="127.0.0.1")
+            client = Client(cluster)
+        bar = None
+        try:
+            futures = [client.submit(task, p, key=f"sondage-member-{p['label']}-{os.getpid()}-"
+                                     f"{abs(hash(str(output)))}", retries=2, pure=False)
+                       for p in todo]
+            if progress:
+                from tqdm import tqdm
+                bar = tqdm(total=len(payloads), initial=len(payloads) - len(todo),
+                           unit="member", desc="series", file=sys.stderr, dynamic_ncols=True,
+                           mininterval=0.1 if sys.stderr.isatty() else 30.0)
+            for fut in as_completed(futures):
+                res = fut.result()
+                if bar is not None:
+                    bar.set_postfix_str(str(res.get("label", "")))
+                    bar.update(1)
+        finally:
+            if bar is not None:
+                bar.close()
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+    missing = [p["label"] for p in payloads if member_state(p["member_path"]) != "finished"]
+    if missing:
+        raise RuntimeError(f"members not finished after the run: {', '.join(missing)}")
+    t_members = time.perf_counter() - t_start
+    stats = series_statistics(series, output, seed=seed, arrhenius_steps=arrhenius_steps)
+    write_statistics(output, stats)
+    set_series_attrs(output, wall_s_members=t_members,
+                     wall_s_statistics=time.perf_counter() - t_start - t_members)
+    if report:
+        from ._figures import series_report  # matplotlib only here, never on a worker
+
+        series_report(output)
+    return output
