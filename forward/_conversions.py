@@ -13,8 +13,13 @@ import math
 import numpy as np
 import scipy.constants
 
-__all__ = ["channel_energy_keV", "channel_of_energy", "atoms_per_cm3", "nm_from_1e15",
+__all__ = ["MAX_CHANNELS", "channel_energy_keV", "channel_of_energy", "atoms_per_cm3", "nm_from_1e15",
            "areal_density_from_nm"]
+
+#: A calibration must increase over at least this many channels (2**16, common ADC sizes);
+#: spectra hold at most this many channels (0 .. 65535) and the highest surface edge must lie
+#: below channel MAX_CHANNELS.
+MAX_CHANNELS = 65536
 
 #: (1e15 atoms/cm2) / (atoms/cm3) = 1e15 cm = 1e22 nm
 _NM_PER_1E15_CM = 1e22

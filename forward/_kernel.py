@@ -60,6 +60,9 @@ Inputs
 ------
 :class:`KernelInputs` names the arguments of :func:`spectrum_kernel` in order; the spectrum
 model builds one per call and the kernel is called as ``spectrum_kernel(*inputs)``.
+
+Kept whole: numba compiles the kernel together with the helpers it inlines, and the steps
+above share their per-slice state; split, they would need that state passed across modules.
 """
 
 from __future__ import annotations

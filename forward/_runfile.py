@@ -42,8 +42,8 @@ from typing import Any, Mapping
 
 import scipy.constants
 
-from ._conversions import (areal_density_from_nm, atoms_per_cm3, channel_energy_keV,
-                           channel_of_energy, nm_from_1e15)
+from ._conversions import (MAX_CHANNELS, areal_density_from_nm, atoms_per_cm3,
+                           channel_energy_keV, channel_of_energy, nm_from_1e15)
 from ._elements import Isotope, capitalisation_slips, element, ion, isotope, parse_formula
 from ._errors import InputError, warn_input
 
@@ -84,10 +84,6 @@ STRAGGLING_CHOICES = ("lindhard-scharff", "bohr")
 CARBON_CHOICES = ("graphite", "amorphous")
 #: Named tilt layouts; ``"direct"`` is recorded when both angles are given.
 LAYOUT_CHOICES = ("IBM", "Cornell")
-#: A calibration must increase over at least this many channels (2**16, common ADC sizes);
-#: spectra hold at most this many channels (0 .. 65535) and the highest surface edge must lie
-#: below channel MAX_CHANNELS.
-MAX_CHANNELS = 65536
 
 #: Lowest beam energy (keV).  Below about 100 keV a helium beam is no longer a backscattering
 #: beam in the sense of the model: at 100 keV the screening corrections to the Rutherford

@@ -45,7 +45,7 @@ from pathlib import Path
 import numpy as np
 
 from ._errors import InputError, InputWarning, warn_input
-from ._runfile import MAX_CHANNELS
+from ._conversions import MAX_CHANNELS
 
 __all__ = ["Spectrum", "read_spectrum", "write_spectrum_csv", "decode_text",
            "NonIntegerCountsWarning", "MAX_CHANNEL"]

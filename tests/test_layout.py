@@ -62,7 +62,7 @@ def _imports(name: str, path: Path) -> set[str]:
 #: Allowed here only until that branch moves the shared integration helpers into a module of
 #: their own; test_no_import_cycle_at_all turns from an expected failure into a failure then,
 #: as a reminder to remove this entry.
-KNOWN_CYCLE_EDGES = {("forward._path", "forward._straggling")}
+KNOWN_CYCLE_EDGES: set = set()
 
 
 def _graph(skip_edges=()) -> dict[str, set]:
@@ -115,8 +115,6 @@ def test_no_import_cycle():
     assert _find_cycle(graph) is None
 
 
-@pytest.mark.xfail(strict=True, reason="forward._path <-> forward._straggling, in the physics "
-                                       "modules' branch (see KNOWN_CYCLE_EDGES)")
 def test_no_import_cycle_at_all():
     assert _find_cycle(_graph()) is None
 
