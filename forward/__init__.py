@@ -80,7 +80,15 @@ _EXPORTS = {
     "simulate": "._simulate",
     "column_name": "._simulate",
     "check_report": "._preflight",
-    "find_leading_edge": "._preflight",
+    "find_leading_edge": "._signals",
+    "preflight": "._preflight",
+    "Preflight": "._preflight",
+    "Finding": "._preflight",
+    # where each signal lies at the detector; how counts line up with the expected spectrum
+    "signal_edges": "._signals",
+    "SignalEdge": "._signals",
+    "species_edges": "._signals",
+    "align_leading_signal": "._signals",
 }
 
 __all__ = sorted(_EXPORTS)

@@ -22,16 +22,22 @@ from .fit._bands import posterior_bands
 from .fit._derived import depth_nm
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings
+from .fit._window import film_floor_channel
+from ._inputs import PreflightWarning, check_seed, load_inputs, preflight_inputs, \
+    replay_warnings
 from .results._outputs import WriterLock, check_output, spectrum_file
 from .results._result import Result, read_result
 from .results._store import now_text
+from .results._backend import compact_result, discard_unstarted
+from .results._store import set_attrs
 from .results._writer import (create_result, open_chain, open_for_resume, set_status,
                               write_posterior, write_start)
-from .sample._convergence import burn_in_and_thin, diagnostics, not_converged_message
+from .sample._convergence import burn_in_and_thin, diagnostics
+from .sample._flags import PosteriorFlagWarning, not_converged_text, posterior_flags
 from .sample._sampler import Sampler, stop_on_interrupt
 
 __all__ = ["invert", "invert_reporting", "read_result", "NotConvergedWarning", "prepare",
-           "finalise", "PROGRAM"]
+           "finalise", "PROGRAM", "PosteriorFlagWarning", "PreflightWarning"]
 
 
 class NotConvergedWarning(UserWarning):
@@ -102,9 +108,13 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
     _check_worth_fitting(run, counts, spectrum)
     settings = read_fit_settings(run.fit, run.source, counts.size)
     if build_model is None:
+        # without explicit windows the model need not follow the ions below the automatic
+        # window's floor (inversion/fit/_window.py)
+        first = settings.first_channel if settings.windows else min(
+            film_floor_channel(run), counts.size - 1)
         build_model = ModelBuilder.for_run(run, counts.size,
                                            depth_limit_1e15=settings.depth_limit_1e15,
-                                           first_channel=settings.first_channel)
+                                           first_channel=first)
     model = build_model()
     spec = bind_fit(settings, model.sample_columns(), model.default_nuisance())
     objective = Objective(spec, counts, build_model, model, measured=measured,
@@ -112,8 +122,9 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
     return run, objective
 
 
-def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force=False,
-           workers=1, progress=True, command=None, build_model=None, likelihood=True) -> Result:
+def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, force=False,
+           workers=1, progress=True, command=None, build_model=None, likelihood=True,
+           accept_calibration=False) -> Result:
     """Sample the posterior of the run's free parameters given a measured spectrum.
 
     Parameters
@@ -124,9 +135,10 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
         The measured spectrum.
     output : path
         The HDF5 result file.  Never overwritten unless ``force``; continued with ``resume``.
-    seed : int
-        Seeds the start search, the walkers and the band draws; the same seed gives
-        bit-identical samples.
+    seed : int, optional
+        Seeds the start search, the walkers and the band draws (0 to 2**31 - 1; default 0);
+        the same seed gives bit-identical samples.  A resumed file keeps the seed it was
+        started with (a different one is ignored, with a warning).
     max_steps : int, optional
         Total steps in the chain (default ``fit.max_steps``).
     resume : bool
@@ -140,18 +152,33 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     command : str, optional
         The command line, stored in the file.
     build_model, likelihood
-        See :func:`prepare` (for tests and studies).
+        See :func:`prepare` (for tests and studies).  With either, the pre-flight comparison
+        of the counts with the run's own forward model is skipped.
+    accept_calibration : bool
+        Go on although the counts' leading signal is not where the calibration puts it (the
+        pre-flight error ``calibration.edge`` or ``calibration.coverage``); recorded.
 
     Returns
     -------
     Result
         What :func:`read_result` gives for ``output``.
+
+    Raises
+    ------
+    forward.InputError
+        Bad inputs, including everything ``sondage check`` calls an error; nothing is written.
     """
     output = Path(output)
+    seed = check_seed(seed)
     run_path = getattr(run, "source", run) if not isinstance(run, (str, Path)) else run
     inputs = {"run file": run_path if isinstance(run_path, (str, Path)) else None,
               "spectrum file": spectrum_file(spectrum)}
-    run, objective = prepare(run, spectrum, build_model=build_model, likelihood=likelihood)
+    loaded = load_inputs(run, spectrum)
+    run, objective = prepare(loaded.run, loaded.spectrum, build_model=build_model,
+                             likelihood=likelihood)
+    input_warnings = [str(w.message) for w in loaded.load_warnings]
+    if build_model is None and likelihood:
+        input_warnings = preflight_inputs(loaded, accept_calibration=accept_calibration)
     max_steps = objective.spec.max_steps if max_steps is None else max_steps
     if int(max_steps) < 1:
         raise InputError(f"max steps must be at least 1, got {max_steps}", where="--max-steps")
@@ -169,17 +196,28 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
         # between the check and the first write
         check_output(output, inputs=inputs, force=force, resume=resume, resumable=True,
                      kind="result file")
+        fresh = not (resume and output.exists())
         backend, seed = _open_backend(output, run, objective, seed=seed, resume=resume,
                                       command=command)
-        status = _sample(output, objective, backend, seed=seed, max_steps=int(max_steps),
-                         workers=int(workers), progress=progress)
-        messages = _messages(status, objective.spec.tau_multiple)
+        try:
+            status = _sample(output, objective, backend, seed=seed, max_steps=int(max_steps),
+                             workers=int(workers), progress=progress)
+        except BaseException:
+            if fresh:  # a new file that never got a step holds nothing worth keeping
+                discard_unstarted(output)
+            raise
+        messages = _messages(status, objective.spec)
+        converged_messages = len(messages)
         finalise(output, objective, status, seed=seed, messages=messages)
+        set_attrs(output, "diagnostics", input_warnings=input_warnings or ["none"])
         set_status(output, finished=now_text(),
                    status="interrupted" if status.interrupted else
                    ("converged" if status.converged else "not converged"))
-    for m in messages:
+        compact_result(output)
+    for m in messages[:converged_messages]:
         warnings.warn(m, NotConvergedWarning, stacklevel=2)
+    for m in messages[converged_messages:]:  # the posterior's flags (sample/_flags.py)
+        warnings.warn(m, PosteriorFlagWarning, stacklevel=2)
     return read_result(output)
 
 
@@ -187,18 +225,20 @@ def invert_reporting(run, spectrum, output, *, quiet=False, **kwargs) -> Result:
     """:func:`invert` as the command line runs it: a progress bar unless ``quiet``, then the
     median and 68 % interval of each thickness and width and the sampler's figures on stdout,
     and a loud banner on stderr when the chain is not converged (printed even when ``quiet``).
+    Every other warning is printed once, also when an input error ends the run.
 
     ``kwargs`` are those of :func:`invert`.
     """
     from .report._tables import interval_table, loud
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", NotConvergedWarning)
-        result = invert(run, spectrum, output, progress=not quiet, **kwargs)
-    loud_ones = [w for w in caught if issubclass(w.category, NotConvergedWarning)]
-    for w in caught:
-        if w not in loud_ones:
-            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    caught = []
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            result = invert(run, spectrum, output, progress=not quiet, **kwargs)
+    finally:  # also when an input error ends the run: what was found is not lost
+        loud_ones = [w for w in caught if issubclass(w.category, NotConvergedWarning)]
+        replay_warnings([w for w in caught if w not in loud_ones])
     if not quiet:
         table = interval_table(result)
         if table:
@@ -220,7 +260,15 @@ def _open_backend(output, run, objective, *, seed, resume, command):
                                                counts=objective.counts,
                                                n_walkers=spec.n_walkers, ndim=objective.ndim,
                                                command=command)
-        return backend, seed if stored_seed is None else stored_seed
+        if stored_seed is None:
+            return backend, 0 if seed is None else seed
+        if seed is not None and seed != stored_seed:
+            warnings.warn(f"{output}: --seed {seed} is ignored: the file was started with seed "
+                          f"{stored_seed}, and a resumed chain continues with the seed it was "
+                          "started with (to start afresh with another seed, use --force)",
+                          forward.InputWarning, stacklevel=3)
+        return backend, stored_seed
+    seed = 0 if seed is None else seed
     backend = create_result(
         output, run_text=run.text, counts=objective.counts, measured=objective.measured,
         priors=spec.describe_priors(),
@@ -232,29 +280,37 @@ def _open_backend(output, run, objective, *, seed, resume, command):
 
 
 def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
-    """Run the sampler into the file's backend, with a progress bar and Ctrl-C handling."""
+    """Run the sampler into the file's backend, with a progress bar (started once the start
+    search is done, so that its rate and time left are those of the sampling) and Ctrl-C
+    handling."""
     spec = objective.spec
     sampler = Sampler(objective, n_walkers=spec.n_walkers, seed=seed, backend=backend,
                       workers=workers, moves=spec.moves)
-    bar = None
-    if progress:
-        from tqdm import tqdm
-        fresh = int(backend.iteration) == 0
-        bar = tqdm(total=max_steps, initial=int(backend.iteration), unit="step",
-                   desc="start search" if fresh else "sampling", file=sys.stderr,
-                   dynamic_ncols=True,
-                   # into a log file (not a terminal): a line every 30 s, not every step
-                   mininterval=0.1 if sys.stderr.isatty() else 30.0)
+    bar = []
     last = [int(backend.iteration)]
 
+    def start_bar():
+        if progress and not bar:
+            from tqdm import tqdm
+            bar.append(tqdm(total=max_steps, initial=last[0], unit="step", desc="sampling",
+                            file=sys.stderr, dynamic_ncols=True,
+                            # into a log file (not a terminal): a line every 30 s
+                            mininterval=0.1 if sys.stderr.isatty() else 30.0))
+
+    if progress and last[0] == 0:
+        print(f"{PROGRAM}: searching for the start point ({objective.ndim} parameters; "
+              "differential evolution, then Nelder-Mead)", file=sys.stderr, flush=True)
+    else:
+        start_bar()
+
     def on_start(theta, logp):
-        if bar is not None:
-            bar.set_description("sampling")
         write_start(output, theta, logp, spec.names)
+        start_bar()
 
     def on_step(step):
-        if bar is not None:
-            bar.update(step - last[0])
+        start_bar()
+        if bar:
+            bar[0].update(step - last[0])
         last[0] = step
 
     try:
@@ -263,17 +319,17 @@ def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
                                check_every=spec.check_every, progress=on_step,
                                should_stop=should_stop, on_start=on_start)
     finally:
-        if bar is not None:
-            bar.close()
+        if bar:
+            bar[0].close()
 
 
-def _messages(status, tau_multiple) -> list:
+def _messages(status, spec) -> list:
     messages = []
     if status.interrupted:
         messages.append(f"interrupted after {status.steps} steps; the file is resumable: run the "
                         f"same command with --resume to continue")
     if not status.converged:
-        messages.append(not_converged_message(status, tau_multiple))
+        messages.append(not_converged_text(status, spec.tau_multiple, spec.check_every))
     return messages
 
 
@@ -291,6 +347,8 @@ def finalise(output, objective, status, *, seed, messages):
     logp_all = backend.get_log_prob()
     theta_map = backend.get_chain()[np.unravel_index(np.argmax(logp_all), logp_all.shape)]
 
+    # the posterior's flags join the warnings (inversion/sample/_flags.py)
+    messages += posterior_flags(spec, backend.get_chain(), logp_all, status.acceptance, samples)
     derived_names, derived_units, notes = objective.derived_names()
     derived = np.array([objective.derived(t) for t in samples])
     bands = posterior_bands(objective, samples, theta_map, n_draws=spec.band_draws,

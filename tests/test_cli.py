@@ -144,7 +144,7 @@ def test_internal_error_exit_1_and_debug_traceback(capsys, monkeypatch):
     def boom(*a, **k):
         raise ZeroDivisionError("float division by zero")
 
-    monkeypatch.setattr(forward, "check_report", boom)
+    monkeypatch.setattr(forward, "preflight", boom)
     code, out, err = _run_main(capsys, ["check", VALID_RUN])
     assert code == 1
     assert err.strip() == ("sondage: internal error: ZeroDivisionError: float division by zero "
@@ -158,7 +158,7 @@ def test_keyboard_interrupt_exit_130(capsys, monkeypatch):
     def interrupted(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(forward, "check_report", interrupted)
+    monkeypatch.setattr(forward, "preflight", interrupted)
     code, out, err = _run_main(capsys, ["check", VALID_RUN])
     assert code == 130
     assert err.strip() == "sondage: interrupted"
@@ -280,30 +280,32 @@ def test_check_warns_above_the_non_rutherford_onset(capsys, tmp_path):
     assert "O: 3500 keV is above the estimated non-Rutherford onset of 2400 keV" in out
 
 
-def _invented_step_spectrum(run_, edge_keV, n_channels=1024, height=800.0, seed=7):
-    """An invented spectrum: a plateau ending at ``edge_keV`` smeared by the detector."""
-    from scipy.special import erfc
+def _simulated(run_, tmp_path, name="spec.csv", seed=7, **calibration):
+    """An invented spectrum: the run's own expected spectrum with Poisson noise, as measured
+    with another calibration (keys of [calibration]) when given."""
+    import dataclasses
 
-    cal, det = run_.calibration, run_.detector
-    centre = cal.centre_keV(np.arange(n_channels))
-    mean = height * 0.5 * erfc((centre - edge_keV) / (math.sqrt(2) * det.sigma_keV))
-    rng = np.random.default_rng(seed)
-    return rng.poisson(mean).astype(float)
+    measured = run_
+    if calibration:
+        measured = dataclasses.replace(run_, calibration=dataclasses.replace(
+            run_.calibration, **calibration))
+    model, columns = forward.simulate(measured, n_channels=1024, poisson=True, seed=seed)
+    path = tmp_path / name
+    forward.write_spectrum_csv(path, {"counts": columns["counts"]}, ["invented, simulated"])
+    return path
 
 
-def _edge_offset_channels(out):
+def _shift_channels(out):
     import re
 
-    m = re.search(r"leading edge in the counts: channel [-0-9.]+ \(([-+0-9.]+) channels", out)
+    m = re.search(r"leading signal: the counts line up with the expected one shifted by "
+                  r"([-+0-9.]+) channels", out)
     assert m, out
     return float(m.group(1))
 
 
 def test_check_finds_the_edge_in_a_matching_spectrum(capsys, tmp_path, invented_run):
-    k = forward.kinematic_factor(forward.ion("4He").mass_u, forward.element("Hf").mass_u, 170.0)
-    counts = _invented_step_spectrum(invented_run, k * 1800.0)
-    spec = tmp_path / "spec.csv"
-    forward.write_spectrum_csv(spec, {"counts": counts}, ["invented step spectrum"])
+    spec = _simulated(invented_run, tmp_path)
     run_path = tmp_path / "run.toml"
     run_path.write_text(INVENTED_RUN)
     code, out, err = _run_main(capsys, ["check", run_path, spec])
@@ -311,21 +313,22 @@ def test_check_finds_the_edge_in_a_matching_spectrum(capsys, tmp_path, invented_
     assert "coverage: yes" in out
     assert "agrees" in out and "DOES NOT AGREE" not in out
     assert "No problems found." in out
-    assert abs(_edge_offset_channels(out)) < 0.5
+    assert abs(_shift_channels(out)) <= 0.5
+    assert "counts: 1" in out or "counts: 0.99" in out
 
 
 def test_check_flags_a_shifted_spectrum(capsys, tmp_path, invented_run):
-    k = forward.kinematic_factor(forward.ion("4He").mass_u, forward.element("Hf").mass_u, 170.0)
-    counts = _invented_step_spectrum(invented_run, k * 1800.0 - 150.0)  # calibration off by 150 keV
-    spec = tmp_path / "spec.csv"
-    forward.write_spectrum_csv(spec, {"counts": counts}, ["invented, shifted"])
+    # measured with the offset 150 keV lower than the run file says: every signal sits
+    # 150 keV / 1.8 keV per channel = 83.3 channels higher in the counts
+    spec = _simulated(invented_run, tmp_path, offset_keV=12.0 - 150.0)
     run_path = tmp_path / "run.toml"
     run_path.write_text(INVENTED_RUN)
     code, out, err = _run_main(capsys, ["check", run_path, spec])
-    assert code == 0
+    assert code == 2
     assert "DOES NOT AGREE" in out
-    assert "check the calibration" in out
-    assert _edge_offset_channels(out) == pytest.approx(-150.0 / 1.8, abs=0.5)
+    assert "calibration.offset_keV" in err and "--accept-calibration" in err
+    assert len(err.strip().splitlines()) == 1
+    assert _shift_channels(out) == pytest.approx(150.0 / 1.8, abs=0.6)
 
 
 def test_check_flags_a_short_spectrum(capsys, tmp_path, invented_run):
@@ -334,8 +337,24 @@ def test_check_flags_a_short_spectrum(capsys, tmp_path, invented_run):
     run_path = tmp_path / "run.toml"
     run_path.write_text(INVENTED_RUN)
     code, out, err = _run_main(capsys, ["check", run_path, spec])
-    assert code == 0
+    assert code == 0  # a cut spectrum is a warning: nothing in it looks like the leading edge
     assert "coverage: NO" in out
+    assert "ends at channel 299" in out and "cut" in out
+
+
+def test_check_flags_a_spectrum_whose_edge_lies_beyond_the_calibration(capsys, tmp_path,
+                                                                      invented_run):
+    # measured with the offset 300 keV higher than the run file says: the counts hold the
+    # leading signal 166.7 channels lower, and the run expects it beyond their last channel
+    spec = _simulated(invented_run, tmp_path, offset_keV=12.0 + 300.0)
+    text = spec.read_text().splitlines()
+    spec.write_text("\n".join(text[:2 + 820]) + "\n")  # channels 0..819
+    run_path = tmp_path / "run.toml"
+    run_path.write_text(INVENTED_RUN)
+    code, out, err = _run_main(capsys, ["check", run_path, spec])
+    assert code == 2, out
+    assert "coverage: NO" in out and "DOES NOT AGREE" in out
+    assert _shift_channels(out) == pytest.approx(-300.0 / 1.8, abs=0.6)
 
 
 def test_find_leading_edge_on_a_smooth_step():

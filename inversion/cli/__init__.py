@@ -9,7 +9,9 @@ Each command lives in its own module ``inversion/cli/_<name>.py`` that defines
 
 Commands whose module is present are registered; the others are simply absent, so a command is
 added by adding its module.  Exit codes: 0 success, 1 internal error, 2 bad input (run file,
-spectrum, options or a user file that cannot be read), 130 interrupted.
+spectrum, options or a user file that cannot be read, or what ``check`` calls an error),
+3 an inversion that finished without converging when ``--require-convergence`` asks for it,
+130 interrupted.
 """
 
 from __future__ import annotations

@@ -1,5 +1,5 @@
 """``sondage check``: validate a run file (and a spectrum) and print what the physics expects
-(:func:`forward.check_report`)."""
+(:func:`inversion._check.check_files`, the pre-flight report of :func:`forward.preflight`)."""
 
 from __future__ import annotations
 
@@ -8,11 +8,16 @@ __all__ = ["HELP", "DESCRIPTION", "add_arguments", "run"]
 HELP = "validate a run file (and optionally a spectrum) and print the expected signals"
 
 DESCRIPTION = """\
-Read a run file, check every key, and print the derived geometry, the beam, the kinematic factor
-and surface-edge energy and channel of every isotope, the stopping cross-sections at the beam
-energy, each layer's depth scale and surface depth resolution, and any warning about the
-Rutherford cross-section.  Give a spectrum as well to check that the calibration puts the
-highest edge where the counts show one.
+Read a run file, check every key (the [fit] table too, as 'sondage invert' would), and print
+the derived geometry, the beam, the kinematic factor and surface-edge energy and channel of
+every isotope, the stopping cross-sections at the beam energy, each layer's depth scale and
+surface depth resolution, signals closer than the detector resolution, and any warning about
+the Rutherford cross-section.  Give a spectrum as well to check that the counts' leading
+signal lies where the calibration puts it and that the counts are what the exposure implies.
+
+The report ends with every error, warning and note found, the warnings raised while reading
+the files included.  Exit code 0 without errors; 2 when the files cannot be read or the
+report lists an error (what 'sondage invert' would refuse), with the first error on stderr.
 
 examples:
   sondage check sample.toml
@@ -29,10 +34,12 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    """Print the report; return 0 (problems with the input raise InputError)."""
-    import forward
+    """Print the report; return 0, or raise the first error the report lists."""
+    from .._check import check_files
 
-    run_ = forward.load_run(args.run_file)
-    spectrum = forward.read_spectrum(args.spectrum) if args.spectrum else None
-    print(forward.check_report(run_, spectrum), end="")
+    report = check_files(args.run_file, args.spectrum)
+    print(report.text(), end="")
+    error = report.error()
+    if error is not None:
+        raise error
     return 0

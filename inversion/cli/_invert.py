@@ -18,8 +18,20 @@ fluence, calibration, resolution and stopping marginalised.  The result file hol
 posterior draws, derived thicknesses and mixing widths, profile bands, predictive spectra and
 convergence diagnostics.
 
+Before anything is written, the inputs pass the checks 'sondage check' prints: an error there
+(the counts' leading signal not where the calibration puts it, counts off the exposure by more
+than a factor of 10, a spectrum without counts) stops the run with one line and exit code 2;
+--accept-calibration goes on past a calibration error deliberately (it is recorded).  Warnings
+(signals closer than the detector resolution, beams above a non-Rutherford onset or above the
+validated stopping range) are printed and stored in the result file.
+
 Sampling stops when the chain is fit.tau_multiple (default 50) autocorrelation times long, or
-at the step cap.  Ctrl-C stops after the current step and leaves the file resumable.
+at the step cap.  Ctrl-C stops after the current step and leaves the file resumable.  After
+sampling, parameters piling up at a prior bound, walkers stuck apart from the others and
+nuisances far from their priors are named in the warnings.
+
+Exit codes: 0 finished (a chain that did not converge is reported loudly), 2 bad input,
+3 finished but not converged with --require-convergence, 130 interrupted.
 
 examples:
   sondage invert run.toml spectrum.csv -o result.h5
@@ -35,14 +47,22 @@ def add_arguments(parser) -> None:
                         help="measured spectrum: text/CSV file or file.h5:/dataset")
     parser.add_argument("-o", "--output", required=True, metavar="RESULT.h5",
                         help="HDF5 result file to write (never overwritten without --force)")
-    parser.add_argument("--seed", type=int, default=0,
-                        help="random seed; the same seed gives identical samples (default 0)")
+    parser.add_argument("--seed", type=int, default=None,
+                        help="random seed, 0 to 2147483647; the same seed gives identical "
+                             "samples (default 0; a resumed file keeps its own)")
     parser.add_argument("--max-steps", type=int, default=None, metavar="N",
                         help="total steps in the chain, earlier segments included "
                              "(default: fit.max_steps, 20000)")
     parser.add_argument("--workers", type=int, default=DEFAULT_WORKERS, metavar="N",
                         help="processes evaluating the model (default: "
                              f"{DEFAULT_WORKERS}, measured to pay on 2 cores; see the README's [fit] section)")
+    parser.add_argument("--accept-calibration", action="store_true",
+                        help="go on although the counts' leading signal is not where the "
+                             "calibration puts it (or the spectrum ends below it); recorded "
+                             "in the result file")
+    parser.add_argument("--require-convergence", action="store_true",
+                        help="exit with code 3 when the run finished but did not converge "
+                             "(for batches; default: exit 0 with a loud warning)")
     mode = parser.add_mutually_exclusive_group()
     mode.add_argument("--resume", action="store_true",
                       help="continue the chain stored in the result file")
@@ -52,17 +72,22 @@ def add_arguments(parser) -> None:
 
 def run(args) -> int:
     """Invert, print the summary (and, even with --quiet, a loud not-converged warning);
-    return 0, or 130 when the run was interrupted."""
+    return 0, 130 when the run was interrupted, 3 when it did not converge and
+    --require-convergence asks for it."""
     from .._api import invert_reporting
 
     command = "sondage invert " + " ".join(
         shlex.quote(a) for a in [args.run_file, args.spectrum, "-o", args.output]
-        + (["--seed", str(args.seed)])
+        + (["--seed", str(args.seed)] if args.seed is not None else [])
         + (["--max-steps", str(args.max_steps)] if args.max_steps is not None else [])
         + ["--workers", str(args.workers)]
+        + (["--accept-calibration"] if args.accept_calibration else [])
         + (["--resume"] if args.resume else []) + (["--force"] if args.force else []))
     result = invert_reporting(args.run_file, args.spectrum, args.output, seed=args.seed,
                               max_steps=args.max_steps, resume=args.resume, force=args.force,
                               workers=args.workers, command=command,
+                              accept_calibration=args.accept_calibration,
                               quiet=bool(getattr(args, "quiet", False)))
-    return 130 if bool(result.diagnostics.get("interrupted", False)) else 0
+    if bool(result.diagnostics.get("interrupted", False)):
+        return 130
+    return 3 if args.require_convergence and not result.converged else 0

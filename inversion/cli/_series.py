@@ -21,6 +21,10 @@ one interface for each anneal, the Arrhenius law D = D0 exp(-Ea / kT), and compa
 neighbouring members.  Each member's full result is kept in SERIES.members/LABEL.h5 next to
 the output file, linked from it; figures and summary.md go to SERIES.report/.
 
+Before any worker starts, every member passes the checks of 'sondage check' and its spectrum
+must hold the chosen interface's signal; a member that fails stops the series with one line
+naming it and its spectrum (exit code 2).
+
 examples:
   sondage series anneals.toml -o anneals.h5
   sondage series anneals.toml -o anneals.h5 --workers 2 --seed 7
@@ -49,6 +53,9 @@ def add_arguments(parser) -> None:
     parser.add_argument("--max-steps", metavar="N", type=int, default=None,
                         help="chain length per member (default: the series file's, else the "
                              "run file's)")
+    parser.add_argument("--accept-calibration", action="store_true",
+                        help="go on although a member's counts do not line up with its "
+                             "calibration (recorded in the member's result file)")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
 
 
@@ -73,6 +80,7 @@ def run(args) -> int:
     series = load_series(args.series_file)
     out = run_series(series, Path(args.output), scheduler=args.scheduler, workers=args.workers,
                      resume=args.resume, force=args.force, seed=args.seed,
-                     max_steps=args.max_steps, progress=not args.no_progress)
+                     max_steps=args.max_steps, progress=not args.no_progress,
+                     accept_calibration=args.accept_calibration)
     print(f"series written to {out}; report in {out.parent / (out.stem + '.report')}")
     return 0

@@ -51,12 +51,15 @@ def run(args) -> int:
 
     from ..report._simulation import write_simulation
 
-    if args.channels is not None and args.channels < 1:
-        raise InputError(f"--channels {args.channels}: give a whole number >= 1",
-                         where="command line: --channels")
+    if args.channels is not None and not 1 <= args.channels <= 65536:
+        raise InputError(f"{args.channels} channels; allowed: a whole number from 1 to 65536",
+                         where="--channels")
     if args.seed is not None and not args.poisson:
         raise InputError("--seed only applies to a Poisson draw; add --poisson",
-                         where="command line: --seed")
+                         where="--seed")
+    if args.seed is not None and not 0 <= args.seed <= 2**31 - 1:
+        raise InputError(f"seed {args.seed} is not allowed; allowed: a whole number from 0 to "
+                         f"{2**31 - 1}", where="--seed")
     if args.plot:
         import matplotlib
 

@@ -22,6 +22,7 @@ from . import _derived
 from ._profiles import LayerStack, NodeProfile, stick_breaking
 from ._roles import Role
 from ._spec import FitSpec
+from ._window import film_floor_channel
 
 __all__ = ["Objective", "ModelBuilder"]
 
@@ -140,12 +141,13 @@ class Objective:
     def __init__(self, spec: FitSpec, counts, build_model, model=None, *, measured=None,
                  likelihood=True):
         self.spec = spec
-        self.counts = np.asarray(counts)
-        if self.counts.ndim != 1 or np.any(self.counts < 0) or np.any(
-                self.counts != np.round(self.counts)):
-            raise InputError("counts must be one row of non-negative whole numbers",
+        self.counts = np.asarray(counts, dtype=np.float64)
+        # counts that are not whole numbers are accepted (the reader warned, naming the file);
+        # the Poisson likelihood below is defined for them through ln Gamma(k + 1)
+        if self.counts.ndim != 1 or not np.all(np.isfinite(self.counts)) or np.any(
+                self.counts < 0):
+            raise InputError("counts must be one row of finite, non-negative numbers",
                              where="spectrum")
-        self.counts = self.counts.astype(np.float64)
         self.measured = (np.ones(self.counts.size, dtype=bool) if measured is None
                          else np.asarray(measured, dtype=bool))
         self.build_model = build_model
@@ -228,6 +230,9 @@ class Objective:
         if self.substrate:
             # the slice grid ends at the depth limit: keep clear of that artificial edge
             lo += 3 * fwhm_channels
+        if isinstance(model, forward.ForwardModel):
+            # leave out the substrate's deep tail below the films' signals (fit/_window.py)
+            lo = max(lo, film_floor_channel(model.run))
         hi = int(above[-1]) + 5 * fwhm_channels
         lo, hi = max(lo, 0), min(hi, n - 1)
         if lo > hi:

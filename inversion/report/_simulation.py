@@ -43,14 +43,18 @@ def write_simulation(run_file, output, *, plot=None, n_channels=None, poisson=Fa
     """
     inputs = {"run file": run_file}
     check_output(output, inputs=inputs, force=force, kind="spectrum file")
+    for what, path in (("-o", output), ("--plot", plot)):
+        if path and not Path(path).expanduser().resolve().parent.is_dir():
+            raise InputError(f"folder {str(Path(path).parent)!r} does not exist; create it "
+                             "first or write elsewhere (nothing was written)", where=str(path))
     if plot:
         if same_path(plot, output):
             raise InputError("--plot names the same file as -o; give the figure its own name",
-                             where=f"command line: --plot {plot}")
+                             where=f"--plot {plot}")
         check_output(plot, inputs=inputs, force=force, option="--plot", kind="figure")
         if Path(plot).suffix.lower() not in PLOT_SUFFIXES:
             raise InputError(f"cannot tell the image format of {str(plot)!r}; allowed: a file "
-                             "ending in " + ", ".join(PLOT_SUFFIXES), where="command line: --plot")
+                             "ending in " + ", ".join(PLOT_SUFFIXES), where="--plot")
     run = forward.load_run(run_file)
     model, columns = forward.simulate(run, n_channels=n_channels, poisson=poisson, seed=seed,
                                       isotopes=isotopes)

@@ -1,22 +1,44 @@
-"""The crash-safe sampler backend: emcee's HDF5 backend writing into the result file's ``/mcmc``.
+"""The crash-safe sampler backend: emcee's HDF5 backend writing into the result file's
+``/mcmc``, and the compaction of a finished file's chain.
 
 One of the two modules of :mod:`inversion` that open HDF5 files (the other is
 :mod:`inversion.results._store`); emcee's backend opens the file itself on every step.
+
+Storage of the chain
+    The chain and its log-posteriors are stored in float32 (:data:`CHAIN_DTYPE`): 7 decimal
+    digits, far finer than any posterior width, at half the size.  While a run writes, each
+    step's row goes into its own uncompressed chunk, written in place (no step moves data
+    already on disk).  When a run ends, :func:`compact_result` rewrites the file with the
+    chain in large compressed chunks (gzip with byte shuffling, a checksum per chunk) and
+    swaps it into place; :func:`expand_result` does the reverse before a resumed run appends
+    to it.  The values are the same bits in both layouts.  What a resumed chain continues
+    from is not the float32 chain but the last step's float64 positions and log-posteriors,
+    kept with the random state in the step-tagged resume slots, so a resumed chain is bit for
+    bit the uninterrupted one.
 """
 
 from __future__ import annotations
 
-import logging
-import time
+import math
+import os
+from pathlib import Path
 
 import emcee
+import h5py
 import numpy as np
 
-from forward import InputError
 
-from ._outputs import is_lock_error
+from ._outputs import LOCK_WAIT_S, waiting_for_lock
 
-__all__ = ["SafeHDFBackend"]
+__all__ = ["SafeHDFBackend", "CHAIN_DTYPE", "compact_result", "expand_result",
+           "discard_unstarted"]
+
+#: storage type of ``/mcmc/chain`` and ``/mcmc/log_prob`` in new files
+CHAIN_DTYPE = np.float32
+#: size (bytes, before compression) of a compacted chain's chunks: the default HDF5 chunk cache
+_COMPACT_CHUNK_BYTES = 1 << 20
+#: size of a writing chain's chunks, one or a few steps each
+_RUN_CHUNK_BYTES = 4096
 
 
 class SafeHDFBackend(emcee.backends.HDFBackend):
@@ -39,53 +61,44 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
     """
 
     #: seconds to keep retrying an open refused by another process's file lock
-    LOCK_WAIT_S = 30.0
+    LOCK_WAIT_S = LOCK_WAIT_S
 
     def open(self, mode="r"):
-        start = time.monotonic()
-        told = False
-        while True:
-            try:
-                return super().open(mode)
-            except OSError as exc:
-                if not is_lock_error(exc):
-                    raise
-                waited = time.monotonic() - start
-                if waited > self.LOCK_WAIT_S:
-                    raise InputError(
-                        f"busy: another program has kept this file open for {waited:.0f} s, "
-                        "so the sampler cannot write its next step; close it there. Every "
-                        "step written so far is kept: continue with --resume",
-                        where=self.filename) from None
-                if not told and waited > 2.0:
-                    told = True
-                    logging.getLogger("sondage").warning(
-                        "%s: waiting for another program to close the file", self.filename)
-                time.sleep(0.05)
+        return waiting_for_lock(lambda: super(SafeHDFBackend, self).open(mode), self.filename,
+                                wait_s=self.LOCK_WAIT_S,
+                                doing="write the sampler's next step (every step written so "
+                                      "far is kept: continue with --resume)")
 
-    def _create_slots(self, g, nwalkers):
-        if "resume_key" in g:
-            return
-        g.create_dataset("resume_key", shape=(2, 624), dtype=np.uint32)
-        meta = g.create_dataset("resume_meta", shape=(2, 4), dtype=np.float64)
-        meta.attrs["columns"] = ["step", "pos", "has_gauss", "cached_gaussian"]
-        meta[:, 0] = -1.0
-        g.create_dataset("resume_accepted", shape=(2, nwalkers), dtype=np.float64)
-        g.attrs["resume_slots"] = ("random state and acceptances after step n in slot n % 2, "
-                                   "written and flushed before the counter 'iteration'")
+    def _create_slots(self, g, nwalkers, ndim):
+        if "resume_key" not in g:
+            g.create_dataset("resume_key", shape=(2, 624), dtype=np.uint32)
+            meta = g.create_dataset("resume_meta", shape=(2, 4), dtype=np.float64)
+            meta.attrs["columns"] = ["step", "pos", "has_gauss", "cached_gaussian"]
+            meta[:, 0] = -1.0
+            g.create_dataset("resume_accepted", shape=(2, nwalkers), dtype=np.float64)
+        if "resume_coords" not in g:
+            # the last step's positions and log-posteriors in full precision (the chain itself
+            # is float32), tagged with their step like the random state
+            g.create_dataset("resume_coords", shape=(2, nwalkers, ndim), dtype=np.float64)
+            g.create_dataset("resume_log_prob", shape=(2, nwalkers), dtype=np.float64)
+            tags = g.create_dataset("resume_coords_step", shape=(2,), dtype=np.float64)
+            tags[:] = -1.0
+        g.attrs["resume_slots"] = ("random state, acceptances, positions and log-posteriors "
+                                   "after step n in slot n % 2, written and flushed before the "
+                                   "counter 'iteration'")
 
     def reset(self, nwalkers, ndim):
         super().reset(nwalkers, ndim)
         with self.open("a") as f:
             g = f[self.name]
-            # the chain and log-posteriors again, with a Fletcher-32 checksum per chunk: bytes
-            # damaged on disk then fail loudly on reading instead of entering a resumed chain
-            for key, shape in (("chain", (nwalkers, ndim)), ("log_prob", (nwalkers,))):
+            # the chain and log-posteriors again, in float32, with a Fletcher-32 checksum per
+            # chunk: bytes damaged on disk then fail loudly on reading instead of entering a
+            # resumed chain
+            for key in ("chain", "log_prob"):
+                shape = g[key].shape[1:]
                 del g[key]
-                g.create_dataset(key, (0, *shape), maxshape=(None, *shape), dtype=self.dtype,
-                                 chunks=(max(1, 4096 // (8 * int(np.prod(shape)))), *shape),
-                                 fletcher32=True)
-            self._create_slots(g, nwalkers)
+                g.create_dataset(key, (0, *shape), **_run_layout(shape, CHAIN_DTYPE))
+            self._create_slots(g, nwalkers, ndim)
 
     def _slot(self, g):
         """(key, meta, accepted) of the slot matching the counter, or None without slots."""
@@ -130,7 +143,7 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
             previous = self._slot(g)
             total = (np.array(previous[2]) if previous is not None else g["accepted"][...])
             total = total + accepted
-            self._create_slots(g, int(g.attrs["nwalkers"]))
+            self._create_slots(g, int(g.attrs["nwalkers"]), int(g.attrs["ndim"]))
             g["chain"][n, :, :] = state.coords
             g["log_prob"][n, :] = state.log_prob
             if state.blobs is not None:
@@ -141,5 +154,142 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
             g["resume_key"][s] = np.asarray(key, dtype=np.uint32)
             g["resume_accepted"][s] = total
             g["resume_meta"][s] = [n + 1, pos, has_gauss, cached]
+            g["resume_coords"][s] = np.asarray(state.coords, dtype=np.float64)
+            g["resume_log_prob"][s] = np.asarray(state.log_prob, dtype=np.float64)
+            g["resume_coords_step"][s] = n + 1
             f.flush()
             g.attrs.modify("iteration", n + 1)
+
+    def get_value(self, name, flat=False, thin=1, discard=0):
+        """As emcee's, in float64 whatever the stored type."""
+        value = super().get_value(name, flat=flat, thin=thin, discard=discard)
+        if name in ("chain", "log_prob") and value is not None:
+            value = np.asarray(value, dtype=np.float64)
+        return value
+
+    def get_last_sample(self):
+        """The state to continue from: the last step's float64 positions and log-posteriors
+        and the random state, from the resume slot tagged with the counter (files written
+        before the slots held positions: the chain's last row)."""
+        coords = log_prob = None
+        with self.open() as f:
+            g = f[self.name]
+            n = int(g.attrs["iteration"])
+            if n > 0 and "resume_coords" in g:
+                tags = g["resume_coords_step"][()]
+                for slot in (n % 2, 1 - n % 2):
+                    if int(tags[slot]) == n:
+                        coords = np.array(g["resume_coords"][slot])
+                        log_prob = np.array(g["resume_log_prob"][slot])
+                        break
+        if coords is None:
+            return super().get_last_sample()
+        return emcee.State(coords, log_prob=log_prob, random_state=self.random_state)
+
+
+# ----------------------------------------------------------------------------------------------
+# the chain's two layouts
+def _row_layout(shape, dtype, chunk_bytes: int, steps: int | None = None) -> dict:
+    row = int(np.dtype(dtype).itemsize * max(1, int(np.prod(shape))))
+    rows = max(1, chunk_bytes // row)
+    if steps is not None:  # a power of two, no larger than the steps stored need
+        rows = 1 << int(math.log2(rows))
+        rows = min(rows, 1 << max(0, math.ceil(math.log2(max(steps, 1)))))
+    return dict(maxshape=(None, *shape), dtype=dtype, chunks=(rows, *shape), fletcher32=True)
+
+
+def _run_layout(shape, dtype, steps=None) -> dict:
+    """Uncompressed chunks of one or a few steps: each step is written in place."""
+    return _row_layout(shape, dtype, _RUN_CHUNK_BYTES)
+
+
+def _compact_layout(shape, dtype, steps=None) -> dict:
+    """Large chunks, byte-shuffled and gzip-compressed (level 4)."""
+    return dict(_row_layout(shape, dtype, _COMPACT_CHUNK_BYTES, steps=steps or 1),
+                compression="gzip", compression_opts=4, shuffle=True)
+
+
+def _fsync(path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _rewrite(path, layout, *, name: str = "mcmc") -> None:
+    """Copy a result file with ``/<name>/chain`` and ``log_prob`` in another layout into a
+    file beside it, then swap it into place (a crash leaves the original untouched)."""
+    path = Path(path)
+    tmp = path.with_name(path.name + ".rewrite")
+    try:
+        with _open_waiting(path, "r") as src, h5py.File(tmp, "w") as dst:
+            for key, value in src.attrs.items():
+                dst.attrs[key] = value
+            for key in src:
+                if key != name:
+                    src.copy(src[key], dst, name=key)
+                    continue
+                g_src = src[key]
+                g = dst.create_group(key)
+                for k, v in g_src.attrs.items():
+                    g.attrs[k] = v
+                n = int(g_src.attrs.get("iteration", 0))
+                for k in g_src:
+                    d = g_src[k]
+                    if k not in ("chain", "log_prob") or not isinstance(d, h5py.Dataset):
+                        g_src.copy(d, g, name=k)
+                        continue
+                    out = g.create_dataset(k, d.shape, **layout(d.shape[1:], d.dtype, n))
+                    step = max(1, out.chunks[0])
+                    for i in range(0, n, step):  # the steps written; rows above stay unwritten
+                        out[i:min(n, i + step)] = d[i:min(n, i + step)]
+                    for a, v in d.attrs.items():
+                        out.attrs[a] = v
+        _fsync(tmp)
+        os.replace(tmp, path)
+        _fsync(path.parent)
+    except BaseException:
+        try:
+            tmp.unlink()
+        except OSError:
+            pass
+        raise
+
+
+def _is_compact(path, name: str = "mcmc") -> bool:
+    with _open_waiting(path, "r") as f:
+        return name in f and "chain" in f[name] and f[name]["chain"].compression is not None
+
+
+def compact_result(path, *, name: str = "mcmc") -> None:
+    """Rewrite a result file whose run has ended with its chain compressed (same values)."""
+    _rewrite(path, _compact_layout, name=name)
+
+
+def expand_result(path, *, name: str = "mcmc") -> None:
+    """Before a resumed run appends to a compacted chain: back to one uncompressed chunk per
+    step or so (same values), so that no step rewrites compressed data."""
+    if _is_compact(path, name):
+        _rewrite(path, _run_layout, name=name)
+
+
+def discard_unstarted(path, *, name: str = "mcmc") -> None:
+    """Remove a new result file that never got a step (a run that failed at its start)."""
+    path = Path(path)
+    try:
+        with h5py.File(path, "r") as f:
+            steps = int(f[name].attrs.get("iteration", 0)) if name in f else 0
+    except (OSError, KeyError):
+        steps = 0
+    if steps == 0:
+        try:
+            path.unlink()
+        except OSError:
+            pass
+
+
+def _open_waiting(path, mode: str):
+    """``h5py.File(path, mode)``, waiting while another program holds the file."""
+    return waiting_for_lock(lambda: h5py.File(path, mode), path,
+                            wait_s=SafeHDFBackend.LOCK_WAIT_S, doing="rewrite it")

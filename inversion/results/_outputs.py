@@ -23,14 +23,20 @@ from __future__ import annotations
 import datetime as _dt
 import errno
 import fcntl
+import logging
 import os
 import socket
+import time
 from pathlib import Path
 
 from forward import InputError
 
 __all__ = ["check_output", "same_path", "spectrum_file", "WriterLock", "writer_pid",
-           "lock_path", "release_inherited_locks", "is_lock_error"]
+           "lock_path", "release_inherited_locks", "is_lock_error", "waiting_for_lock",
+           "LOCK_WAIT_S"]
+
+#: seconds a writer waits for another program to close a result file it needs to write
+LOCK_WAIT_S = 30.0
 
 #: file descriptors of the locks this process holds (closed in forked workers)
 _HELD: set[int] = set()
@@ -232,3 +238,40 @@ def is_lock_error(exc: BaseException) -> bool:
     """True for HDF5's "unable to lock file": another process has the file open."""
     return (getattr(exc, "errno", None) in (errno.EAGAIN, errno.EWOULDBLOCK)
             or "unable to lock file" in str(exc))
+
+
+def waiting_for_lock(opener, filename, *, wait_s: float = LOCK_WAIT_S,
+                     doing: str = "write to it"):
+    """``opener()`` (an HDF5 open), retried while another program holds the file's HDF5 lock.
+
+    After two seconds the wait is said once on the ``sondage`` logger; after ``wait_s`` seconds
+    one :class:`forward.InputError` says "busy", naming the file.
+
+    Parameters
+    ----------
+    opener : callable
+        Opens the file; raises OSError (:func:`is_lock_error`) while another program holds it.
+    filename : path
+        For the messages.
+    doing : str
+        What could not be done, for the message ("write its next step", ...).
+    """
+    start = time.monotonic()
+    told = False
+    while True:
+        try:
+            return opener()
+        except OSError as exc:
+            if not is_lock_error(exc):
+                raise
+            waited = time.monotonic() - start
+            if waited > wait_s:
+                raise InputError(f"busy: another program has kept this file open for "
+                                 f"{waited:.0f} s, so sondage cannot {doing}; close it there "
+                                 "and run again", where=str(filename)) from None
+            if not told and waited > 2.0:
+                told = True
+                logging.getLogger("sondage").warning(
+                    "%s: waiting for another program to close the file (at most %.0f s)",
+                    filename, wait_s)
+            time.sleep(0.05)

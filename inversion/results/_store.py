@@ -23,6 +23,7 @@ Layouts and dataset names: :mod:`inversion.results._schema`.
 from __future__ import annotations
 
 import datetime as _dt
+import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -32,7 +33,7 @@ import numpy as np
 
 from forward import InputError
 
-from ._outputs import is_lock_error, writer_pid
+from ._outputs import is_lock_error, waiting_for_lock, writer_pid
 from ._schema import FORMAT_VERSION, INPUT_MEASURED, INPUT_PRIORS, INPUT_RUN, INPUT_SPECTRUM, \
     MCMC, attrs_of
 
@@ -135,9 +136,15 @@ def write_input(path, *, run_text, counts, measured, priors, attrs):
         f.create_dataset(INPUT_PRIORS, data=np.array(priors, dtype=object), dtype=_STR)
 
 
+def _open_for_writing(path):
+    """``h5py.File(path, "a")``, waiting a while (then "busy", naming the file) while another
+    program has the file open."""
+    return waiting_for_lock(lambda: h5py.File(path, "a"), path)
+
+
 def set_attrs(path, group: str = "/", **attrs) -> None:
     """Set attributes of a group (created if missing) of an existing file."""
-    with h5py.File(path, "a") as f:
+    with _open_for_writing(path) as f:
         g = f.require_group(group) if group not in ("", "/") else f
         for key, value in attrs.items():
             g.attrs[key] = value
@@ -171,7 +178,7 @@ def _write_tree(group, tree):
 
 def write_groups(path, groups: dict):
     """Write final groups under /_staging, then swap each into place."""
-    with h5py.File(path, "a") as f:
+    with _open_for_writing(path) as f:
         if "_staging" in f:
             del f["_staging"]
         stage = f.create_group("_staging")
@@ -189,7 +196,7 @@ def write_tree(path, tree: dict, *, mode: str = "a") -> None:
     """Write groups given by path (``"members/summary"``), replacing any there (a value of
     None removes the group); ``'@attrs'`` sets root attributes.  ``mode="w"`` starts a new
     file (``format_version`` added)."""
-    with h5py.File(path, mode) as f:
+    with (h5py.File(path, mode) if mode == "w" else _open_for_writing(path)) as f:
         if mode == "w":
             f.attrs["format_version"] = FORMAT_VERSION
         for key, value in tree.items():
@@ -241,10 +248,15 @@ def unreadable(exc, path):
     another process holds it, "damaged" otherwise."""
     if is_lock_error(exc):
         pid = writer_pid(path)
-        who = (f"sondage process {pid} is writing it" if pid is not None and pid > 0
-               else "another program has it open for writing")
+        who = (f"sondage process {pid} is writing it"
+               if pid is not None and pid > 0 and pid != os.getpid()
+               else "another program has it open")
         return InputError(f"busy: {who}; try again when it has finished or closed the file",
                           where=str(path))
+    if (Path(path).is_file() and Path(path).suffix.lower() not in (".h5", ".hdf5", ".hdf", ".he5")
+            and not is_hdf5(path)):
+        return InputError("not an HDF5 file, so not a result file of sondage invert; give the "
+                          "file that sondage invert -o wrote", where=str(path))
     return InputError(damaged_message(exc), where=str(path))
 
 

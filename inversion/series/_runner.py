@@ -12,6 +12,7 @@ from __future__ import annotations
 import os
 import sys
 import time
+import warnings
 from pathlib import Path
 
 import forward
@@ -23,7 +24,11 @@ from ._file import Series, interface_names, member_path, member_run
 from ._seriesfile import set_series_attrs, write_members, write_statistics
 from ._statistics import series_statistics
 
-__all__ = ["run_series", "invert_member", "member_state", "member_path"]
+__all__ = ["run_series", "invert_member", "member_state", "member_path", "MemberWarning"]
+
+
+class MemberWarning(UserWarning):
+    """A warning raised while a member was inverted on a worker, passed on by the runner."""
 
 
 def member_state(path) -> str:
@@ -40,6 +45,50 @@ def member_state(path) -> str:
                                                                        "interrupted"):
         return "finished"
     return "partial" if "input" in parts else "broken"
+
+
+def _interface_channels(series: Series, run, where: str):
+    """(first, last, low keV, high keV) of the channels holding the chosen interface's signal
+    at a member's calibration: from the top edge of the layer above (its whole signal, the
+    film's peak) down to the low edge of the layer above and the top edge of the layer below,
+    each with a margin of two detector widths."""
+    above, below = series.interface - 1, series.interface
+    edges = [e for e in forward.signal_edges(run) if e.fraction >= 0.05]
+    highs = [e.top_keV for e in edges if e.layer in (above, below) and e.top_keV > 0]
+    lows = ([e.bottom_keV for e in edges if e.layer == above and e.bottom_keV]
+            + [e.top_keV for e in edges if e.layer == below and e.top_keV > 0])
+    if not highs or not lows:
+        raise InputError(f"no signal of interface {series.interface} reaches the detector at "
+                         "this beam energy and geometry", where=where)
+    fwhm = run.detector.fwhm_keV
+    high, low = max(highs) + 2.0 * fwhm, max(0.0, min(lows) - 2.0 * fwhm)
+    cal = run.calibration
+    first = max(0, int(cal.channel_of(max(low, cal.energy_keV(0.0)))))
+    last = int(cal.channel_of(high))
+    return first, last, low, high
+
+
+def _check_member(series: Series, member, loaded, *, accept_calibration: bool) -> None:
+    """Refuse a member whose spectrum does not hold the chosen interface's signal, or that the
+    pre-flight checks call an error; one line naming the member and the file."""
+    from .._inputs import preflight_inputs
+
+    where = f"{series.source}: member[{member.label}]"
+    spectrum = loaded.spectrum
+    first, last, low, high = _interface_channels(series, loaded.run, where)
+    have_first, have_last = int(spectrum.channel[0]), int(spectrum.channel[-1])
+    if have_first > first or have_last < last:
+        layers = loaded.run.layers
+        raise InputError(
+            f"the spectrum {spectrum.source} holds channels {have_first} to {have_last}, but "
+            f"the signal of interface {series.interface} ({layers[series.interface - 1].name} "
+            f"over {layers[series.interface].name}) needs channels {first} to {last} "
+            f"({low:.0f} to {high:.0f} keV at this member's calibration); give the whole "
+            "spectrum, or check the member's calibration", where=where)
+    try:
+        preflight_inputs(loaded, accept_calibration=accept_calibration, emit=True)
+    except InputError as exc:
+        raise InputError(f"{exc}", where=where) from None
 
 
 def invert_member(payload: dict) -> dict:
@@ -63,33 +112,42 @@ def invert_member(payload: dict) -> dict:
 
     out = Path(payload["member_path"])
     state = member_state(out)
+    said = []
     if state != "finished":
-        run = forward.load_run(payload["run_path"])
-        if payload["overrides"]:
-            run = run.with_overrides(payload["overrides"], source=payload["where"])
-        out.parent.mkdir(parents=True, exist_ok=True)
-        invert(run, payload["spectrum"], out, seed=int(payload["seed"]),
-               max_steps=payload["max_steps"], resume=state == "partial",
-               force=state == "broken", progress=False,
-               command=f"sondage series member {payload['label']}")
-    return {"label": payload["label"], "path": str(out), "state": state}
+        # warnings go back to the process that prints them (never raw from a worker)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            run = forward.load_run(payload["run_path"])
+            if payload["overrides"]:
+                run = run.with_overrides(payload["overrides"], source=payload["where"])
+            out.parent.mkdir(parents=True, exist_ok=True)
+            invert(run, payload["spectrum"], out, seed=int(payload["seed"]),
+                   max_steps=payload["max_steps"], resume=state == "partial",
+                   force=state == "broken", progress=False,
+                   accept_calibration=bool(payload.get("accept_calibration", False)),
+                   command=f"sondage series member {payload['label']}")
+        said = [f"member {payload['label']}: {' '.join(str(w.message).split())}"
+                for w in caught if not issubclass(w.category, forward.InputWarning)]
+    return {"label": payload["label"], "path": str(out), "state": state, "warnings": said}
 
 
-def _payloads(series: Series, output: Path, seed: int, max_steps):
+def _payloads(series: Series, output: Path, seed: int, max_steps, accept_calibration=False):
     out = []
     for m in series.members:
         out.append({"label": m.label, "run_path": str(series.run_path),
                     "overrides": m.overrides, "where": f"{series.source}: member[{m.label}]",
                     "spectrum": m.spectrum, "member_path": str(member_path(output, m.label)),
                     "seed": int(seed) + 1000 * m.index,
-                    "max_steps": max_steps if max_steps is not None else series.max_steps})
+                    "max_steps": max_steps if max_steps is not None else series.max_steps,
+                    "accept_calibration": bool(accept_calibration)})
     return out
 
 
 def run_series(series: Series, output, *, scheduler: str | None = None, workers: int = 2,
                resume: bool = False, force: bool = False, seed: int = 0,
                max_steps: int | None = None, task=None, progress: bool = True,
-               report: bool = True, arrhenius_steps: int = 3000, check_inputs: bool = True):
+               report: bool = True, arrhenius_steps: int = 3000, check_inputs: bool = True,
+               accept_calibration: bool = False):
     """Invert every member of a series on dask.distributed, then the series statistics.
 
     Parameters
@@ -119,7 +177,10 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
     arrhenius_steps : int
         emcee steps of the Arrhenius fit.
     check_inputs : bool
-        Check every member's run overrides and spectrum here before submitting.
+        Check every member's run overrides and spectrum here before submitting: the checks
+        of ``sondage check``, and that the spectrum holds the chosen interface's signal.
+    accept_calibration : bool
+        Go on past the pre-flight calibration errors of any member (recorded in its file).
 
     Returns
     -------
@@ -127,9 +188,15 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
         The series result file.
     """
     output = Path(output)
+    from .._inputs import SEED_MAX, check_seed
+
     workers = int(workers)
     if workers < 1:
         raise InputError(f"workers must be at least 1, got {workers}", where="--workers")
+    seed = check_seed(0 if seed is None else seed)
+    if seed + 1000 * (len(series.members) - 1) + 2 > 2**32 - 1:
+        raise InputError(f"seed {seed} is too large for {len(series.members)} members (member "
+                         f"k uses seed + 1000 k); allowed: 0 to {SEED_MAX}", where="--seed")
 
     inputs = {"series file": series.source, "run-file template": series.run_path,
               **{f"spectrum of member {m.label}": spectrum_file(m.spectrum)
@@ -142,11 +209,13 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
         return _run_series_locked(series, output, scheduler=scheduler, workers=workers,
                                   resume=resume, force=force, seed=seed, max_steps=max_steps,
                                   task=task, progress=progress, report=report,
-                                  arrhenius_steps=arrhenius_steps, check_inputs=check_inputs)
+                                  arrhenius_steps=arrhenius_steps, check_inputs=check_inputs,
+                                  accept_calibration=accept_calibration)
 
 
 def _run_series_locked(series, output, *, scheduler, workers, resume, force, seed, max_steps,
-                       task, progress, report, arrhenius_steps, check_inputs):
+                       task, progress, report, arrhenius_steps, check_inputs,
+                       accept_calibration):
     """The body of :func:`run_series`, run while holding the series file's writer lock."""
     from dask.distributed import Client, LocalCluster, as_completed
 
@@ -154,13 +223,22 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
         # everything a member's inversion would refuse, refused here, before any cluster starts
         # (one clear error instead of worker failures and a lost run)
         from .._api import prepare
+        from .._inputs import load_inputs, replay_warnings
 
         name_nm, name_areal = interface_names(series)
+        told = set()
         for m in series.members:
-            run_m, spectrum_m = member_run(series, m), forward.read_spectrum(m.spectrum)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                run_m = member_run(series, m)
+                loaded = load_inputs(run_m, m.spectrum, replay=False)
+            # each reader's warning once, not once per member
+            replay_warnings([w for w in caught if str(w.message) not in told])
+            told |= {str(w.message) for w in caught}
+            loaded.load_warnings = list(caught)
             if task not in (None, invert_member):  # a stand-in task: no inversion to check
                 continue
-            _, objective = prepare(run_m, spectrum_m)
+            _, objective = prepare(loaded.run, loaded.spectrum)
             spec = objective.spec
             if name_areal not in objective.derived_names()[0] or (
                     spec.profile == "layers" and name_areal not in spec.names):
@@ -168,13 +246,18 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
                                  f"of interface {series.interface} ({name_areal}); free it, "
                                  f"e.g. \"{name_areal}\" = true",
                                  where=f"{series.source}: series.interface")
+            with warnings.catch_warnings(record=True) as found:
+                warnings.simplefilter("always")
+                _check_member(series, m, loaded, accept_calibration=accept_calibration)
+            replay_warnings([w for w in found if str(w.message) not in told])
+            told |= {str(w.message) for w in found}
     if force:
         for m in series.members:
             p = member_path(output, m.label)
             if p.exists():
                 p.unlink()
     task = task or invert_member
-    payloads = _payloads(series, output, seed, max_steps)
+    payloads = _payloads(series, output, seed, max_steps, accept_calibration)
     member_path(output, "x").parent.mkdir(parents=True, exist_ok=True)
     todo = [p for p in payloads if member_state(p["member_path"]) != "finished"]
     write_members(output, series, seed=seed, status="running",
@@ -201,6 +284,8 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
                            mininterval=0.1 if sys.stderr.isatty() else 30.0)
             for fut in as_completed(futures):
                 res = fut.result()
+                for text in res.get("warnings", ()):  # a worker's warnings, printed here
+                    warnings.warn(text, MemberWarning, stacklevel=2)
                 if bar is not None:
                     bar.set_postfix_str(str(res.get("label", "")))
                     bar.update(1)
