@@ -95,6 +95,10 @@ class ReportData:
     log_prob: np.ndarray | None = None  # steps x walkers
     diagnostics: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
+    #: the pre-flight warnings about the inputs (/diagnostics attribute ``input_warnings``):
+    #: signals closer than the resolution, non-Rutherford onsets, stopping above its validated
+    #: range, a calibration accepted deliberately, the readers' warnings
+    input_warnings: list = field(default_factory=list)
 
     def quantity(self, name: str, kind: str | None = None) -> Quantity:
         """The first :class:`Quantity` called ``name`` (of ``kind``, if given); KeyError if none."""
@@ -301,6 +305,8 @@ def report_data(result: Result) -> ReportData:
         data.diagnostics = diag
         data.warnings = [w for w in _strings(diag.get("warnings"))
                          if w.strip() and w.strip().lower() != "none"]
+        data.input_warnings = [w for w in _strings(diag.get("input_warnings"))
+                               if w.strip() and w.strip().lower() != "none"]
         tau = _per_parameter(diag, ("autocorr_time",), len(names))
         ess = _per_parameter(diag, ("ess",), len(names))
         for i, q in enumerate(data.quantities[:len(names)]):

@@ -86,6 +86,8 @@ def format_summary_text(data: ReportData, *, compact: bool = False) -> str:
                      f"[{_fmt(s['low95'])}, {_fmt(s['high95'])}]  {q.unit}".rstrip())
     for w in data.warnings:
         lines.append(f"warning: {w}")
+    for w in data.input_warnings:
+        lines.append(f"input warning: {w}")
     if ok:
         lines.append(f"convergence: {reason}")
     return "\n".join(lines)
@@ -197,6 +199,10 @@ def write_summary_md(data: ReportData, path: Path, figures: dict[str, Path]) -> 
                            f"{_fmt(q.stats.get('effective_sample_size'))} |")
     out += ["", "## Warnings", ""]
     out += [f"- {w}" for w in data.warnings] or ["- none recorded"]
+    out += ["", "## Warnings about the inputs", "",
+            "What the pre-flight checks (the checks of `sondage check`) found before sampling.",
+            ""]
+    out += [f"- {w}" for w in data.input_warnings] or ["- none recorded"]
     if data.report_notes:
         out += ["", "## Notes on this report", ""] + [f"- {n}" for n in data.report_notes]
     out += ["", "## Provenance", ""] + _provenance_lines(data)
