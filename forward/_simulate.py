@@ -56,7 +56,9 @@ def simulate(run, *, n_channels=None, poisson=False, seed=None, isotopes=False):
         counts = expected
     columns = {
         "channel": np.arange(model.n_channels, dtype=np.int64),
-        "energy_keV": model.channel_energy_keV(),
+        # to a micro-electronvolt: offset + gain * (c + 1/2) in binary floating point would
+        # otherwise print as 55.900000000000006
+        "energy_keV": np.round(model.channel_energy_keV(), 9),
         "counts": counts,
         "expected": expected,
     }

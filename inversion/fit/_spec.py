@@ -341,7 +341,8 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
                 "1e15 atoms/cm2", Role.MIXING, i,
                 lambda s=0.25 * min(near): make_prior("halfnormal", s))
         for i, L in enumerate(layers):
-            available[f"{L.name}.composition"] = ("", Role.SHARE, i, None)
+            if np.count_nonzero(L.composition) > 1:  # one species: nothing to share out
+                available[f"{L.name}.composition"] = ("", Role.SHARE, i, None)
     for kind in NUISANCES:
         field_value = getattr(default_nuisance, kind.role.field)
         if kind.role.per_element:

@@ -14,7 +14,7 @@ import math
 import numpy as np
 
 __all__ = ["posterior_flags", "not_converged_text", "PosteriorFlagWarning", "PILE_FRACTION",
-           "PILE_SPAN", "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_SD", "STUCK_LOG_POSTERIOR",
+           "PILE_SPAN", "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_NEVER", "STUCK_SD", "STUCK_LOG_POSTERIOR",
            "STUCK_MIN_STEPS"]
 
 #: A parameter piles at a bound when more than this fraction of the draws ...
@@ -27,6 +27,8 @@ PILE_SPAN = 0.01
 NUISANCE_SD = 3.0
 #: A walker is stuck when its acceptance is below this fraction of the median walker's ...
 STUCK_ACCEPTANCE = 0.1
+#: ... or below this, whatever the others do (it has next to never moved) ...
+STUCK_NEVER = 0.005
 #: ... or when its median position (any parameter) or log-posterior over the second half of the
 #: chain lies further than this many robust standard deviations (1.4826 x the median absolute
 #: deviation) of the other walkers' draws from their median.
@@ -113,7 +115,8 @@ def _stuck_flags(spec, chain, log_prob, acceptance) -> list:
     out = []
     for w in range(walkers):
         reasons = []
-        if math.isfinite(typical) and typical > 0 and acceptance[w] < STUCK_ACCEPTANCE * typical:
+        if acceptance.size == walkers and acceptance[w] < max(
+                STUCK_ACCEPTANCE * (typical if math.isfinite(typical) else 0.0), STUCK_NEVER):
             reasons.append(f"acceptance {acceptance[w]:.3f} (median walker {typical:.3f})")
         centre, spread = _centre_spread(np.delete(half, w, axis=1).reshape(-1, half.shape[2]))
         apart = [spec.parameters[j].name for j in range(half.shape[2])
@@ -163,8 +166,8 @@ def posterior_flags(spec, chain, log_prob, acceptance, samples) -> list:
     list of str
         * a parameter with more than :data:`PILE_FRACTION` of its draws within
           :data:`PILE_SPAN` of its prior's span of a bound of the prior;
-        * a walker whose acceptance is below :data:`STUCK_ACCEPTANCE` of the median walker's,
-          or whose median position or log-posterior over the second half of the chain lies
+        * a walker whose acceptance is below :data:`STUCK_ACCEPTANCE` of the median walker's
+          or below :data:`STUCK_NEVER`, or whose median position or log-posterior over the second half of the chain lies
           more than :data:`STUCK_SD` robust standard deviations from the other walkers' (in
           chains of at least :data:`STUCK_MIN_STEPS` steps);
         * a nuisance whose posterior median lies more than :data:`NUISANCE_SD` prior standard
@@ -196,7 +199,7 @@ def not_converged_text(status, tau_multiple: float, check_every: int) -> str:
         needed = tau_multiple * tau_max
         what = (f"{tau_multiple:g} x the longest autocorrelation time estimated so far "
                 f"({tau_max:.1f} steps) asks for at least {math.ceil(needed)} steps")
-    suggest = max(needed, 2 * steps, steps + check_every)
+    suggest = max(needed, 2 * steps, steps + 1)
     suggest = int(math.ceil(suggest / check_every) * check_every)
     return (f"NOT CONVERGED: {steps} steps, but {what}, and an estimate from a chain this "
             "short is a lower bound (it grows as the chain does); intervals may be too narrow "
