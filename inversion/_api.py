@@ -28,7 +28,7 @@ from ._inputs import PreflightWarning, check_seed, load_inputs, preflight_inputs
 from .results._outputs import WriterLock, check_output, spectrum_file
 from .results._result import Result, read_result
 from .results._store import now_text
-from .results._backend import compact_result, discard_unstarted
+from .results._backend import compact_result, discard_unstarted, expand_result
 from .results._store import set_attrs
 from .results._writer import (create_result, open_chain, open_for_resume, set_status,
                               write_posterior, write_start)
@@ -199,6 +199,8 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
         fresh = not (resume and output.exists())
         backend, seed = _open_backend(output, run, objective, seed=seed, resume=resume,
                                       command=command)
+        if not fresh:  # a compacted chain back in the layout steps are appended to
+            expand_result(output)
         try:
             status = _sample(output, objective, backend, seed=seed, max_steps=int(max_steps),
                              workers=int(workers), progress=progress)

@@ -1,9 +1,9 @@
 """The bad-input corpus (tests/bad_inputs/, every case invented), run through the real commands.
 
 One table-driven test covers run files (``sondage check RUN``), spectra (``sondage check
-_valid_run.toml SPECTRUM``), inversions (``sondage invert RUN SPECTRUM -o OUT``) and series
-(``sondage series SERIES -o OUT``): exit code 2, the expected fragment, exactly one line on
-stderr and no traceback.  The cases and fragments live in tests/bad_inputs/expected.toml.  One
+_valid_run.toml SPECTRUM``), inversions (``sondage invert RUN SPECTRUM -o OUT``), series
+(``sondage series SERIES -o OUT``) and any command with options (``[[command]]``): exit code 2,
+the expected fragment, exactly one line on stderr, no traceback, and nothing written.  The cases and fragments live in tests/bad_inputs/expected.toml.  One
 case of each kind also runs in a separate interpreter, for the true process exit status.
 """
 
@@ -41,6 +41,10 @@ def _cases():
                       entry["fragment"]))
     for name, fragment in EXPECTED["series"].items():
         cases.append((f"series:{name}", "series", [CORPUS / name], fragment))
+    for entry in EXPECTED["command"]:
+        argv = [str(CORPUS / a) if (CORPUS / a).exists() else a for a in entry["argv"]]
+        cases.append((f"command:{' '.join(entry['argv'])}", "command", argv,
+                      entry["fragment"]))
     return cases
 
 
@@ -48,6 +52,8 @@ CASES = _cases()
 
 
 def _argv(kind, inputs, tmp_path):
+    if kind == "command":
+        return [str(a).replace("{tmp}", str(tmp_path)) for a in inputs]
     argv = [kind, *map(str, inputs)]
     if kind == "invert":
         argv += ["-o", str(tmp_path / "result.h5"), "--workers", "1"]
@@ -68,6 +74,8 @@ def _assert_one_line_error(code, err, fragment):
 def _digest(paths):
     out = {}
     for p in paths:
+        if not str(p).startswith(str(CORPUS)):  # an option or an output
+            continue
         p = Path(str(p).split(".h5:")[0] + ".h5") if ".h5:" in str(p) else Path(p)
         out[str(p)] = hashlib.sha256(p.read_bytes()).hexdigest() if p.is_file() else None
     return out
@@ -77,12 +85,12 @@ def test_corpus_size_and_files():
     # the brief: at least 30 broken inputs across run files, spectra and series files
     assert len(CASES) >= 30
     kinds = {c[1] for c in CASES}
-    assert kinds == {"check", "invert", "series"}
+    assert kinds == {"check", "invert", "series", "command"}
     assert len(EXPECTED["series"]) >= 10 and len(EXPECTED["invert"]) >= 5
-    for _, _, inputs, _ in CASES:
+    for _, kind, inputs, _ in CASES:
         for p in inputs:
             text = str(p)
-            if "no_such_file" in text:
+            if "no_such_file" in text or kind == "command":
                 continue
             assert Path(text.split(".h5:")[0] + (".h5" if ".h5:" in text else "")).exists(), p
 
@@ -94,9 +102,8 @@ def test_bad_input(capsys, tmp_path, case_id, kind, inputs, fragment):
     out, err = capsys.readouterr()
     _assert_one_line_error(code, err, fragment)
     assert _digest(inputs) == before  # inputs untouched
-    # nothing half-written: a refused inversion or series leaves no result file behind
-    assert not (tmp_path / "result.h5").exists()
-    assert not (tmp_path / "series.h5").exists()
+    # nothing half-written: a refused command leaves nothing behind (not even a lock file)
+    assert sorted(p.name for p in tmp_path.iterdir()) == []
 
 
 def test_valid_corpus_inputs_are_accepted(capsys):

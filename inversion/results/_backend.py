@@ -28,7 +28,7 @@ import h5py
 import numpy as np
 
 
-from ._outputs import LOCK_WAIT_S, waiting_for_lock
+from ._outputs import waiting_for_lock
 
 __all__ = ["SafeHDFBackend", "CHAIN_DTYPE", "compact_result", "expand_result",
            "discard_unstarted"]
@@ -60,8 +60,9 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
     looking at a running inversion), instead of failing the run.
     """
 
-    #: seconds to keep retrying an open refused by another process's file lock
-    LOCK_WAIT_S = LOCK_WAIT_S
+    #: seconds to keep retrying an open refused by another process's file lock (None: the
+    #: writers' common wait, ``inversion.results._outputs.LOCK_WAIT_S``)
+    LOCK_WAIT_S = None
 
     def open(self, mode="r"):
         return waiting_for_lock(lambda: super(SafeHDFBackend, self).open(mode), self.filename,
@@ -291,5 +292,4 @@ def discard_unstarted(path, *, name: str = "mcmc") -> None:
 
 def _open_waiting(path, mode: str):
     """``h5py.File(path, mode)``, waiting while another program holds the file."""
-    return waiting_for_lock(lambda: h5py.File(path, mode), path,
-                            wait_s=SafeHDFBackend.LOCK_WAIT_S, doing="rewrite it")
+    return waiting_for_lock(lambda: h5py.File(path, mode), path, doing="rewrite it")

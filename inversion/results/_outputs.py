@@ -240,7 +240,7 @@ def is_lock_error(exc: BaseException) -> bool:
             or "unable to lock file" in str(exc))
 
 
-def waiting_for_lock(opener, filename, *, wait_s: float = LOCK_WAIT_S,
+def waiting_for_lock(opener, filename, *, wait_s: float | None = None,
                      doing: str = "write to it"):
     """``opener()`` (an HDF5 open), retried while another program holds the file's HDF5 lock.
 
@@ -256,6 +256,7 @@ def waiting_for_lock(opener, filename, *, wait_s: float = LOCK_WAIT_S,
     doing : str
         What could not be done, for the message ("write its next step", ...).
     """
+    wait_s = LOCK_WAIT_S if wait_s is None else float(wait_s)
     start = time.monotonic()
     told = False
     while True:

@@ -68,11 +68,9 @@ def _interface_channels(series: Series, run, where: str):
     return first, last, low, high
 
 
-def _check_member(series: Series, member, loaded, *, accept_calibration: bool) -> None:
-    """Refuse a member whose spectrum does not hold the chosen interface's signal, or that the
-    pre-flight checks call an error; one line naming the member and the file."""
-    from .._inputs import preflight_inputs
-
+def _check_coverage(series: Series, member, loaded) -> None:
+    """Refuse a member whose spectrum does not hold the chosen interface's signal; one line
+    naming the member and the file."""
     where = f"{series.source}: member[{member.label}]"
     spectrum = loaded.spectrum
     first, last, low, high = _interface_channels(series, loaded.run, where)
@@ -85,10 +83,6 @@ def _check_member(series: Series, member, loaded, *, accept_calibration: bool) -
             f"over {layers[series.interface].name}) needs channels {first} to {last} "
             f"({low:.0f} to {high:.0f} keV at this member's calibration); give the whole "
             "spectrum, or check the member's calibration", where=where)
-    try:
-        preflight_inputs(loaded, accept_calibration=accept_calibration, emit=True)
-    except InputError as exc:
-        raise InputError(f"{exc}", where=where) from None
 
 
 def invert_member(payload: dict) -> dict:
@@ -223,7 +217,7 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
         # everything a member's inversion would refuse, refused here, before any cluster starts
         # (one clear error instead of worker failures and a lost run)
         from .._api import prepare
-        from .._inputs import load_inputs, replay_warnings
+        from .._inputs import load_inputs, preflight_inputs, replay_warnings
 
         name_nm, name_areal = interface_names(series)
         told = set()
@@ -238,7 +232,12 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
             loaded.load_warnings = list(caught)
             if task not in (None, invert_member):  # a stand-in task: no inversion to check
                 continue
-            _, objective = prepare(loaded.run, loaded.spectrum)
+            where = f"{series.source}: member[{m.label}]"
+            _check_coverage(series, m, loaded)
+            try:
+                _, objective = prepare(loaded.run, loaded.spectrum)
+            except InputError as exc:
+                raise InputError(str(exc), where=where) from None
             spec = objective.spec
             if name_areal not in objective.derived_names()[0] or (
                     spec.profile == "layers" and name_areal not in spec.names):
@@ -248,7 +247,10 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
                                  where=f"{series.source}: series.interface")
             with warnings.catch_warnings(record=True) as found:
                 warnings.simplefilter("always")
-                _check_member(series, m, loaded, accept_calibration=accept_calibration)
+                try:
+                    preflight_inputs(loaded, accept_calibration=accept_calibration)
+                except InputError as exc:
+                    raise InputError(str(exc), where=where) from None
             replay_warnings([w for w in found if str(w.message) not in told])
             told |= {str(w.message) for w in found}
     if force:
