@@ -17,6 +17,7 @@ Usage::
 
     python benchmarks/window_and_size.py --window --json
     python benchmarks/window_and_size.py --size gate --json      # minutes: default settings
+    python benchmarks/window_and_size.py --size gate --to-the-cap --json   # 20000 steps
 
 Results: benchmarks/RESULTS.md, section "Window and result-file size".
 """
@@ -157,9 +158,14 @@ def window(names) -> dict:
     return out
 
 
-def size(name: str, max_steps=None) -> dict:
+def size(name: str, max_steps=None, to_the_cap: bool = False) -> dict:
     with tempfile.TemporaryDirectory() as tmp:
         run_file, spectrum_file = _scenario(name, Path(tmp))
+        if to_the_cap:  # the worst case of the defaults: a chain that never converges
+            text = run_file.read_text().replace("[fit.free]", "[fit]\ntau_multiple = 1e6\n"
+                                                "[fit.free]")
+            run_file = Path(tmp) / "cap.toml"
+            run_file.write_text(text)
         result = Path(tmp) / "result.h5"
         argv = ["-q", "invert", str(run_file), str(spectrum_file), "-o", str(result)]
         if max_steps:
@@ -181,6 +187,8 @@ def main(argv=None) -> int:
     parser.add_argument("--window", action="store_true", help="time the windows")
     parser.add_argument("--size", choices=("demo", "gate"), help="a default inversion's file")
     parser.add_argument("--max-steps", type=int, default=None)
+    parser.add_argument("--to-the-cap", action="store_true",
+                        help="never converge (tau_multiple 1e6): the file at the step cap")
     parser.add_argument("--json", action="store_true")
     args = parser.parse_args(argv)
     report = {"machine": platform.platform(), "python": platform.python_version(),
@@ -188,7 +196,7 @@ def main(argv=None) -> int:
     if args.window:
         report["window"] = window(["demo", "gate"])
     if args.size:
-        report["size"] = size(args.size, args.max_steps)
+        report["size"] = size(args.size, args.max_steps, args.to_the_cap)
     print(json.dumps(report, indent=None if args.json else 2))
     return 0
 

@@ -8,6 +8,7 @@ forward model built from that run; the pieces live in :mod:`inversion.fit` (obje
 
 from __future__ import annotations
 
+import os
 import sys
 import warnings
 from pathlib import Path
@@ -23,13 +24,12 @@ from .fit._derived import depth_nm
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings
 from .fit._window import film_floor_channel
-from ._inputs import PreflightWarning, check_seed, load_inputs, preflight_inputs, \
-    replay_warnings
+from ._inputs import (MAX_STEPS, PreflightWarning, check_seed, load_inputs, preflight_inputs,
+                      replay_warnings)
 from .results._outputs import WriterLock, check_output, spectrum_file
 from .results._result import Result, read_result
-from .results._store import now_text
 from .results._backend import compact_result, discard_unstarted, expand_result
-from .results._store import set_attrs
+from .results._store import now_text, set_attrs
 from .results._writer import (create_result, open_chain, open_for_resume, set_status,
                               write_posterior, write_start)
 from .sample._convergence import burn_in_and_thin, diagnostics
@@ -156,7 +156,7 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
         of the counts with the run's own forward model is skipped.
     accept_calibration : bool
         Go on although the counts' leading signal is not where the calibration puts it (the
-        pre-flight error ``calibration.edge`` or ``calibration.coverage``); recorded.
+        pre-flight error ``calibration.edge``); recorded as a warning.
 
     Returns
     -------
@@ -179,11 +179,21 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
     input_warnings = [str(w.message) for w in loaded.load_warnings]
     if build_model is None and likelihood:
         input_warnings = preflight_inputs(loaded, accept_calibration=accept_calibration)
+    steps_where = "--max-steps" if max_steps is not None else f"{run.source}: fit.max_steps"
     max_steps = objective.spec.max_steps if max_steps is None else max_steps
     if int(max_steps) < 1:
-        raise InputError(f"max steps must be at least 1, got {max_steps}", where="--max-steps")
+        raise InputError(f"max steps must be at least 1, got {max_steps}", where=steps_where)
+    if int(max_steps) > MAX_STEPS:
+        raise InputError(f"max steps {max_steps} is more than any inversion needs; allowed: 1 "
+                         f"to {MAX_STEPS}", where=steps_where)
     if int(workers) < 1:
         raise InputError(f"workers must be at least 1, got {workers}", where="--workers")
+    cores = os.cpu_count() or 1
+    if int(workers) > cores:
+        warnings.warn(f"--workers {workers} is more than the {cores} cores of this machine; "
+                      f"using {cores} (more processes than cores only slow each step down)",
+                      forward.InputWarning, stacklevel=2)
+        workers = cores
     if command is None:
         command = f"invert({run.source!r}, output={str(output)!r}, seed={seed})"
 
@@ -215,7 +225,12 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
         set_status(output, finished=now_text(),
                    status="interrupted" if status.interrupted else
                    ("converged" if status.converged else "not converged"))
-        compact_result(output)
+        try:
+            compact_result(output)
+        except (OSError, InputError) as exc:  # the file is whole, only larger than it could be
+            warnings.warn(f"{output}: the finished result file could not be compacted "
+                          f"({' '.join(str(exc).split())}); it is complete, only larger",
+                          forward.InputWarning, stacklevel=2)
     for m in messages[:converged_messages]:
         warnings.warn(m, NotConvergedWarning, stacklevel=2)
     for m in messages[converged_messages:]:  # the posterior's flags (sample/_flags.py)

@@ -115,6 +115,14 @@ def test_resume_keeps_its_seed_and_batches_get_their_exit_code(tmp_path, capsys)
         assert np.array_equal(f["posterior/samples"][()], g["posterior/samples"][()])
 
 
+def test_more_workers_than_cores_are_capped_with_a_warning(tmp_path, capsys):
+    code = cli.main(["invert", str(RUN), str(SPECTRUM), "-o", str(tmp_path / "r.h5"),
+                     "--workers", "1000"])
+    err = capsys.readouterr().err
+    assert code == 0, err
+    assert f"--workers 1000 is more than the {os.cpu_count()} cores" in err
+
+
 def test_the_progress_bar_starts_after_the_start_search(tmp_path, capsys):
     code, out, err = _invert(capsys, RUN, SPECTRUM, "-o", tmp_path / "r.h5")
     assert code == 0, err

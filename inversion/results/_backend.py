@@ -205,9 +205,10 @@ def _run_layout(shape, dtype, steps=None) -> dict:
 
 
 def _compact_layout(shape, dtype, steps=None) -> dict:
-    """Large chunks, byte-shuffled and gzip-compressed (level 4)."""
+    """Large chunks, byte-shuffled and gzip-compressed (level 9: about 4 % smaller than level 4
+    for a chain, once per run)."""
     return dict(_row_layout(shape, dtype, _COMPACT_CHUNK_BYTES, steps=steps or 1),
-                compression="gzip", compression_opts=4, shuffle=True)
+                compression="gzip", compression_opts=9, shuffle=True)
 
 
 def _fsync(path) -> None:
@@ -218,7 +219,32 @@ def _fsync(path) -> None:
         os.close(fd)
 
 
-def _rewrite(path, layout, *, name: str = "mcmc") -> None:
+#: numeric datasets outside the chain with at least this many values are compressed too when a
+#: file is compacted (posterior draws, derived draws): lossless, read back unchanged
+_COMPRESS_OTHERS_FROM = 4096
+
+
+def _copy_group(src, dst, compress: bool) -> None:
+    """Copy a group's attributes and members; with ``compress``, large numeric datasets are
+    written again gzip-compressed with byte shuffling (and a checksum per chunk)."""
+    for k, v in src.attrs.items():
+        dst.attrs[k] = v
+    for key in src:
+        link = src.get(key, getlink=True)
+        item = src[key] if not isinstance(link, (h5py.ExternalLink, h5py.SoftLink)) else None
+        if isinstance(item, h5py.Group):
+            _copy_group(item, dst.create_group(key), compress)
+        elif (compress and isinstance(item, h5py.Dataset) and item.dtype.kind in "fiu"
+              and item.size >= _COMPRESS_OTHERS_FROM and item.compression is None):
+            out = dst.create_dataset(key, data=item[()], compression="gzip",
+                                     compression_opts=4, shuffle=True, fletcher32=True)
+            for a, v in item.attrs.items():
+                out.attrs[a] = v
+        else:
+            src.copy(key, dst, name=key)
+
+
+def _rewrite(path, layout, *, name: str = "mcmc", compress_others: bool = False) -> None:
     """Copy a result file with ``/<name>/chain`` and ``log_prob`` in another layout into a
     file beside it, then swap it into place (a crash leaves the original untouched)."""
     path = Path(path)
@@ -229,7 +255,10 @@ def _rewrite(path, layout, *, name: str = "mcmc") -> None:
                 dst.attrs[key] = value
             for key in src:
                 if key != name:
-                    src.copy(src[key], dst, name=key)
+                    if isinstance(src[key], h5py.Group):
+                        _copy_group(src[key], dst.create_group(key), compress_others)
+                    else:
+                        src.copy(key, dst, name=key)
                     continue
                 g_src = src[key]
                 g = dst.create_group(key)
@@ -264,8 +293,9 @@ def _is_compact(path, name: str = "mcmc") -> bool:
 
 
 def compact_result(path, *, name: str = "mcmc") -> None:
-    """Rewrite a result file whose run has ended with its chain compressed (same values)."""
-    _rewrite(path, _compact_layout, name=name)
+    """Rewrite a result file whose run has ended with its chain compressed, and its other large
+    numeric datasets too (same values)."""
+    _rewrite(path, _compact_layout, name=name, compress_others=True)
 
 
 def expand_result(path, *, name: str = "mcmc") -> None:

@@ -13,6 +13,8 @@ import math
 
 import numpy as np
 
+from .._inputs import MAX_STEPS
+
 __all__ = ["posterior_flags", "not_converged_text", "PosteriorFlagWarning", "PILE_FRACTION",
            "PILE_SPAN", "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_NEVER", "STUCK_SD", "STUCK_LOG_POSTERIOR",
            "STUCK_MIN_STEPS"]
@@ -200,7 +202,7 @@ def not_converged_text(status, tau_multiple: float, check_every: int) -> str:
         what = (f"{tau_multiple:g} x the longest autocorrelation time estimated so far "
                 f"({tau_max:.1f} steps) asks for at least {math.ceil(needed)} steps")
     suggest = max(needed, 2 * steps, steps + 1)
-    suggest = int(math.ceil(suggest / check_every) * check_every)
+    suggest = min(int(math.ceil(suggest / check_every) * check_every), MAX_STEPS)
     return (f"NOT CONVERGED: {steps} steps, but {what}, and an estimate from a chain this "
             "short is a lower bound (it grows as the chain does); intervals may be too narrow "
             f"or misplaced. Continue with --resume --max-steps {suggest} (or more)")
