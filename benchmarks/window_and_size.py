@@ -179,7 +179,22 @@ def size(name: str, max_steps=None, to_the_cap: bool = False) -> dict:
         return {"scenario": name, "exit_code": code, "wall_s": round(wall, 1),
                 "steps": int(r.diagnostics["steps"]), "walkers": int(r.diagnostics["walkers"]),
                 "parameters": len(r.names), "converged": bool(r.converged),
-                "size_MB": round(result.stat().st_size / 1e6, 2)}
+                "size_MB": round(result.stat().st_size / 1e6, 2),
+                "stored_MB": _stored(result)}
+
+
+def _stored(path) -> dict:
+    """Bytes stored per top-level group (the chain's datasets apart), in MB."""
+    import h5py
+
+    out = {}
+    with h5py.File(path, "r") as f:
+        def visit(name, obj):
+            if isinstance(obj, h5py.Dataset):
+                key = name if name in ("mcmc/chain", "mcmc/log_prob") else name.split("/")[0]
+                out[key] = out.get(key, 0) + obj.id.get_storage_size()
+        f.visititems(visit)
+    return {k: round(v / 1e6, 3) for k, v in sorted(out.items())}
 
 
 def main(argv=None) -> int:

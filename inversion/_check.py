@@ -26,10 +26,10 @@ def _fit_findings(run, spectrum) -> list:
         if spectrum is not None:
             prepare(run, spectrum)  # windows and thresholds against the spectrum's channels
     except InputError as exc:
-        if "nothing about the sample is free" in exc.message:
-            return [forward.Finding("warning", "fit.free", exc.message + "; sondage invert "
-                                    "refuses a [fit] table that frees nothing", exc.where or "")]
-        return [forward.Finding("error", "fit", exc.message, exc.where or "")]
+        if "nothing about the sample is free" not in exc.message:
+            raise  # a key of the run file, reported as every other key is: no report
+        return [forward.Finding("warning", "fit.free", exc.message + "; sondage invert "
+                                "refuses a [fit] table that frees nothing", exc.where or "")]
     return []
 
 
@@ -38,15 +38,12 @@ def check_files(run_file, spectrum_file=None) -> "forward.Preflight":
     table checked as ``sondage invert`` would) and, optionally, a spectrum.
 
     The readers' warnings are issued once (the command line prints them) and listed in the
-    report.  Errors in reading the files raise :class:`forward.InputError`; the pre-flight
-    and ``[fit]`` errors are in the report (:meth:`forward.Preflight.error`).
+    report.  Errors in the files, the ``[fit]`` table included, raise
+    :class:`forward.InputError`; the pre-flight errors are in the report
+    (:meth:`forward.Preflight.error`).
     """
     inputs = load_inputs(run_file, spectrum_file)
     report = forward.preflight(inputs.run, inputs.spectrum, load_warnings=inputs.load_warnings)
     # with a spectrum that already fails, the [fit] table is checked without it
-    fit = _fit_findings(inputs.run, None if report.errors else inputs.spectrum)
-    if fit:
-        errors = [f for f in fit if f.severity == "error"]
-        report.findings[:0] = errors  # a [fit] error is the first thing to fix
-        report.findings += [f for f in fit if f.severity != "error"]
+    report.findings += _fit_findings(inputs.run, None if report.errors else inputs.spectrum)
     return report

@@ -341,8 +341,7 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
                 "1e15 atoms/cm2", Role.MIXING, i,
                 lambda s=0.25 * min(near): make_prior("halfnormal", s))
         for i, L in enumerate(layers):
-            if np.count_nonzero(L.composition) > 1:  # one species: nothing to share out
-                available[f"{L.name}.composition"] = ("", Role.SHARE, i, None)
+            available[f"{L.name}.composition"] = ("", Role.SHARE, i, None)
     for kind in NUISANCES:
         field_value = getattr(default_nuisance, kind.role.field)
         if kind.role.per_element:
@@ -374,8 +373,10 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     free = settings.free
     for name in free:
         if name not in available:
+            offered = [n for n, a in available.items()  # a one-species layer has no share
+                       if a[1] is not Role.SHARE or np.count_nonzero(layers[a[2]].composition) > 1]
             raise InputError(f"no free quantity called {name!r}; available: "
-                             f"{', '.join(available)}", where=where(f"free.{name}"))
+                             f"{', '.join(offered)}", where=where(f"free.{name}"))
         if name in spec.fixed:
             raise InputError(f"{name!r} is listed both in fit.fixed and fit.free",
                              where=where(f"free.{name}"))
