@@ -484,7 +484,8 @@ def _spectrum_lines(run_, spectrum, findings, accept_calibration):
     top = max(edges, key=lambda e: e.edge_keV)
     top_c = cal.channel_of(top.edge_keV)
     lines.append(f"  highest expected edge (elements >= {MAJOR_FRACTION:g} atom fraction): "
-                 f"{top.label} at {top.edge_keV:.1f} keV, channel {_channel_text(cal, top.edge_keV)}")
+                 f"{top.label} at {top.edge_keV:.1f} keV, channel "
+                 f"{_channel_text(cal, top.edge_keV)}")
     if not math.isfinite(top_c) or top_c >= 65535:
         lines.append("  the calibration puts it beyond the channels a spectrum can hold")
         return lines

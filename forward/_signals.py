@@ -24,7 +24,8 @@ from ._path import energy_after_path
 from ._stopping import StoppingModel
 
 __all__ = ["SignalEdge", "SpeciesEdge", "Alignment", "signal_edges", "species_edges",
-           "align_leading_signal", "find_leading_edge", "stopping_model_of", "exit_angle_deg", "MAJOR_FRACTION"]
+           "align_leading_signal", "find_leading_edge", "stopping_model_of", "exit_angle_deg",
+           "MAJOR_FRACTION"]
 
 #: Elements below this atom fraction in a layer are left out of the leading-edge comparison.
 MAJOR_FRACTION = 0.05

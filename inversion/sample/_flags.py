@@ -16,7 +16,8 @@ import numpy as np
 from .._inputs import MAX_STEPS
 
 __all__ = ["posterior_flags", "not_converged_text", "PosteriorFlagWarning", "PILE_FRACTION",
-           "PILE_SPAN", "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_NEVER", "STUCK_SD", "STUCK_LOG_POSTERIOR",
+           "PILE_SPAN", "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_NEVER", "STUCK_SD",
+           "STUCK_LOG_POSTERIOR",
            "STUCK_MIN_STEPS"]
 
 #: A parameter piles at a bound when more than this fraction of the draws ...
@@ -169,9 +170,9 @@ def posterior_flags(spec, chain, log_prob, acceptance, samples) -> list:
         * a parameter with more than :data:`PILE_FRACTION` of its draws within
           :data:`PILE_SPAN` of its prior's span of a bound of the prior;
         * a walker whose acceptance is below :data:`STUCK_ACCEPTANCE` of the median walker's
-          or below :data:`STUCK_NEVER`, or whose median position or log-posterior over the second half of the chain lies
-          more than :data:`STUCK_SD` robust standard deviations from the other walkers' (in
-          chains of at least :data:`STUCK_MIN_STEPS` steps);
+          or below :data:`STUCK_NEVER`, or whose median position or log-posterior over the
+          second half of the chain lies more than :data:`STUCK_SD` robust standard deviations
+          from the other walkers' (in chains of at least :data:`STUCK_MIN_STEPS` steps);
         * a nuisance whose posterior median lies more than :data:`NUISANCE_SD` prior standard
           deviations from the prior's centre.
     """
