@@ -21,12 +21,12 @@ from ._about import PROGRAM, version
 from .fit._bands import posterior_bands
 from .fit._derived import depth_nm
 from .fit._objective import ModelBuilder, Objective
-from .fit._spec import bind_fit, read_fit_settings
+from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .results._outputs import WriterLock, check_output, spectrum_file
 from .results._result import Result, read_result
 from .results._store import now_text
-from .results._writer import (create_result, open_chain, open_for_resume, set_status,
-                              write_posterior, write_start)
+from .results._writer import (create_result, open_chain, open_for_resume, read_starts,
+                              set_status, write_posterior, write_start)
 from .sample._convergence import burn_in_and_thin, diagnostics, not_converged_message
 from .sample._sampler import Sampler, stop_on_interrupt
 
@@ -35,7 +35,9 @@ __all__ = ["invert", "invert_reporting", "read_result", "NotConvergedWarning", "
 
 
 class NotConvergedWarning(UserWarning):
-    """The chain is shorter than ``tau_multiple`` autocorrelation times for some parameter."""
+    """A loud warning: the chain is not converged (too short for ``tau_multiple``
+    autocorrelation times, or walker groups that disagree), it was interrupted, the start
+    searches disagree, or the data reject the model."""
 
 
 def _load(run, spectrum):
@@ -106,7 +108,8 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
                                            depth_limit_1e15=settings.depth_limit_1e15,
                                            first_channel=settings.first_channel)
     model = build_model()
-    spec = bind_fit(settings, model.sample_columns(), model.default_nuisance())
+    columns = model.sample_columns()
+    spec = bind_fit(settings, columns, model.default_nuisance(), stopping_widths(run, columns))
     objective = Objective(spec, counts, build_model, model, measured=measured,
                           likelihood=likelihood)
     return run, objective
@@ -173,8 +176,8 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
                                       command=command)
         status = _sample(output, objective, backend, seed=seed, max_steps=int(max_steps),
                          workers=int(workers), progress=progress)
-        messages = _messages(status, objective.spec.tau_multiple)
-        finalise(output, objective, status, seed=seed, messages=messages)
+        messages = _messages(status, objective.spec)
+        messages += finalise(output, objective, status, seed=seed, messages=messages)
         set_status(output, finished=now_text(),
                    status="interrupted" if status.interrupted else
                    ("converged" if status.converged else "not converged"))
@@ -247,10 +250,15 @@ def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
                    mininterval=0.1 if sys.stderr.isatty() else 30.0)
     last = [int(backend.iteration)]
 
-    def on_start(theta, logp):
+    def on_start(thetas, logps, warning):
         if bar is not None:
             bar.set_description("sampling")
-        write_start(output, theta, logp, spec.names)
+        best = int(np.argmax(logps))
+        write_start(output, thetas[best], float(logps[best]), spec.names, searches=thetas,
+                    search_log_posterior=logps,
+                    method=f"{len(logps)} independent searches (differential evolution in "
+                           "prior bounds, Nelder-Mead polish); walkers in one group per "
+                           "search, drawn from its Laplace approximation")
 
     def on_step(step):
         if bar is not None:
@@ -267,24 +275,42 @@ def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
             bar.close()
 
 
-def _messages(status, tau_multiple) -> list:
+def _messages(status, spec) -> list:
     messages = []
     if status.interrupted:
         messages.append(f"interrupted after {status.steps} steps; the file is resumable: run the "
                         f"same command with --resume to continue")
     if not status.converged:
-        messages.append(not_converged_message(status, tau_multiple))
-    return messages
+        messages.append(not_converged_message(status, spec.tau_multiple, spec.names))
+    return messages + list(status.warnings)
 
 
-def finalise(output, objective, status, *, seed, messages):
-    """Posterior draws, derived quantities, bands, predictive spectra and diagnostics, written
-    into the result file's final groups."""
+def _rejection_message(check) -> str:
+    """The loud warning for a spectrum the model does not describe."""
+    where = ", ".join(f"channels {a}-{b} ({'more' if sign > 0 else 'fewer'} counts than the "
+                      "model)" for a, b, sign in check.ranges[:4])
+    return ("MODEL REJECTED: the data do not fit the model (posterior predictive p-value "
+            f"{check.p_value:.3g}" + (f"; residuals run systematically at {where}" if where
+                                       else "") + "). The intervals hold only if the model were "
+            "right: look at the residuals, the window and the physics options (straggling "
+            "law, stopping, non-Rutherford cross-sections) before trusting them")
+
+
+def finalise(output, objective, status, *, seed, messages) -> list:
+    """Posterior draws, derived quantities, bands, predictive spectra, the posterior
+    predictive check and diagnostics, written into the result file's final groups.
+
+    Returns
+    -------
+    list of str
+        Warnings found while finishing (the model rejected by the predictive check); they are
+        stored with ``messages`` in ``/diagnostics``.
+    """
     spec = objective.spec
     backend = open_chain(output)
     steps = int(backend.iteration)
     if steps == 0:
-        return
+        return []
     discard, thin = burn_in_and_thin(status.tau, steps)
     samples = backend.get_chain(discard=discard, thin=thin, flat=True)
     logp = backend.get_log_prob(discard=discard, thin=thin, flat=True)
@@ -295,15 +321,34 @@ def finalise(output, objective, status, *, seed, messages):
     derived = np.array([objective.derived(t) for t in samples])
     bands = posterior_bands(objective, samples, theta_map, n_draws=spec.band_draws,
                             seed=seed + 2)
+    found = []
+    diag = diagnostics(status, steps=steps, n_walkers=spec.n_walkers,
+                       tau_multiple=spec.tau_multiple, discard=discard, thin=thin,
+                       messages=messages)
+    check = bands.check
+    if check is not None:
+        if check.rejected:
+            found.append(_rejection_message(check))
+        diag.update(ppc_p_value=check.p_value, model_rejected=check.rejected,
+                    ppc_alpha=check.alpha, ppc_z_limit=check.z_limit,
+                    ppc_deviance=np.column_stack([check.deviance_observed,
+                                                  check.deviance_replicated]),
+                    ppc_blocks=np.column_stack([check.block_first, check.block_last,
+                                                check.block_z]),
+                    ppc_ranges=np.array(check.ranges, dtype=np.int64).reshape(-1, 3))
+    starts = read_starts(output)
+    if starts is not None:
+        diag["starts"] = np.column_stack([starts[0], starts[1]])
+    if found:
+        diag["warnings"] = [m for m in diag["warnings"] if m != "none"] + found
     write_posterior(
         output, spec=spec, samples=samples, log_posterior=logp, discard=discard, thin=thin,
         derived_names=derived_names, derived_units=derived_units, derived_notes=notes,
-        derived=derived, depth_1e15=0.5 * (objective.edges_1e15[1:] + objective.edges_1e15[:-1]),
-        depth_nm=depth_nm(objective), bands=bands, counts=objective.counts,
+        derived=derived, depth_1e15=bands.depth_1e15,
+        depth_nm=depth_nm(objective, bands.depth_1e15), bands=bands, counts=objective.counts,
         window=objective.mask, run_calibration_keV=_run_calibration(objective),
-        diagnostics=diagnostics(status, steps=steps, n_walkers=spec.n_walkers,
-                                tau_multiple=spec.tau_multiple, discard=discard, thin=thin,
-                                messages=messages))
+        diagnostics=diag)
+    return found
 
 
 def _run_calibration(objective):

@@ -6,8 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from inversion._predictive import poisson_deviance, predictive_check
-from inversion._rhat import RHAT_LIMIT, rank_normalised_split_rhat, split_rhat
+from inversion.fit._predictive import poisson_deviance, predictive_check
+from inversion.sample._rhat import RHAT_LIMIT, rank_normalised_split_rhat, split_rhat
 
 __all__: list[str] = []
 
@@ -53,7 +53,7 @@ def test_folded_rhat_catches_chains_that_differ_only_in_spread():
     rng = np.random.default_rng(4)
     x = rng.standard_normal((4000, 8))
     x[:, :4] *= 2.0
-    from inversion._rhat import _normal_scores, _split
+    from inversion.sample._rhat import _normal_scores, _split
     bulk = split_rhat(_normal_scores(_split(x)))
     assert bulk < RHAT_LIMIT
     assert rank_normalised_split_rhat(x) > 1.05

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy.special import ndtr
 
-from inversion._stack import ramp_integral, refinement_points, slice_amounts, stack_table
+from inversion.fit._stack import ramp_integral, refinement_points, slice_amounts, stack_table
 
 __all__: list[str] = []
 

@@ -1,15 +1,16 @@
-"""Profile models: a few parameters in, a (slices x species) atom-fraction table out.
+"""Profile models: a few parameters in, a slice table (areal density and atom fractions per
+slice) out.
 
-Two models share one contract, ``fractions(...) -> ndarray (n_slices, n_species)``, evaluated
-on the forward model's fixed slice grid (edges in 1e15 atoms/cm2):
-
-* :class:`LayerStack`, layers with error-function mixing at each interface;
-* :class:`NodeProfile`, a free-form profile through K nodes in additive log-ratio space.
+* :class:`LayerStack`, layers with mixing at each interface, atoms conserved
+  (:mod:`inversion.fit._stack`): its slices follow the sample, and their areal densities are
+  the atoms they hold;
+* :class:`NodeProfile`, a free-form profile through K nodes in additive log-ratio space, on the
+  forward model's nominal grid.
 
 Every row is a slice AVERAGE of the profile, so expected counts are continuous in every
 parameter.  Rows are non-negative and sum to one, except where a sample without a substrate
-ends: there a row sums to the part of the slice that holds atoms (0 below the sample).
-Equations: README.md, "The [fit] table".
+ends: there a row holds nothing (or, for the node model, the part of the slice above its last
+node).  Equations: README.md, "The [fit] table".
 """
 
 from __future__ import annotations
@@ -18,6 +19,8 @@ import math
 
 import numpy as np
 from scipy.special import ndtr
+
+from ._stack import point_composition, stack_table
 
 __all__ = ["step_average", "LayerStack", "NodeProfile", "alr_to_fractions", "stick_breaking"]
 
@@ -68,14 +71,11 @@ def step_average(edges_1e15, position_1e15, width_1e15):
 
 
 class LayerStack:
-    """Layers of fixed or free composition with error-function mixing at each interface.
+    """Layers of fixed or free composition, each box blurred by its own interfaces, atoms
+    conserved (the construction and its equations: :mod:`inversion.fit._stack`).
 
     Parameters
     ----------
-    edges_1e15 : ndarray, shape (n + 1,)
-        Slice edges of the forward model's grid (1e15 atoms/cm2).
-    n_species : int
-        Columns of the fraction table.
     n_layers : int
         Number of layers, surface first, the substrate (if any) last.
     substrate : bool
@@ -83,70 +83,38 @@ class LayerStack:
 
     Notes
     -----
-    With interface i at depth ``z_i`` (cumulative areal density of the layers above it) and
-    mixing width ``w_i``, ``S_i(z) = Phi((z - z_i) / w_i)`` and layer weights
-    ``W_0 = 1 - S_0``, ``W_k = S_{k-1} - S_k``, ``W_last = S_last``; the composition is
-    ``f(z) = sum_k W_k(z) c_k``, identical to ``f_above + (f_below - f_above) S_i`` at an
-    isolated interface.  Where two interfaces of very different widths overlap, a weight can
-    turn negative; it is then set to zero and the weights renormalised, which keeps every row
-    on the simplex.
+    Interface ``k`` is the bottom of finite layer ``k`` (areal density ``t_k``) with mixing
+    width ``w_k``.  Every layer's atoms are counted once for any widths: the slices of layer
+    ``k`` hold exactly ``t_k`` atoms, compositions are non-negative and sum to one, and an
+    isolated interface between thick layers is the error-function step
+    ``f_above + (f_below - f_above) Phi((z - z_k) / w_k)``.  Nothing is clipped.
     """
 
-    def __init__(self, edges_1e15, n_species: int, n_layers: int, substrate: bool):
-        self.edges_1e15 = np.asarray(edges_1e15, dtype=float)
-        self.n_species = int(n_species)
+    def __init__(self, n_layers: int, substrate: bool):
         self.n_layers = int(n_layers)
         self.substrate = bool(substrate)
-        #: interfaces: between layers, plus the bottom of the last layer when vacuum is below
-        self.n_interfaces = self.n_layers - 1 if self.substrate else self.n_layers
+        #: finite layers; each has an interface at its bottom (to the next layer, the
+        #: substrate, or vacuum)
         self.n_thick = self.n_layers - 1 if self.substrate else self.n_layers
+        self.n_interfaces = self.n_thick
 
-    def weights(self, areal_density_1e15, mixing_1e15):
-        """Slice-averaged weight of each layer (and of vacuum, last column, if no substrate).
-
-        Parameters
-        ----------
-        areal_density_1e15 : array_like, shape (n_thick,)
-            Areal density of each layer above the substrate (1e15 atoms/cm2).
-        mixing_1e15 : array_like, shape (n_interfaces,)
-            Mixing width (Gaussian standard deviation) of each interface (1e15 atoms/cm2).
+    def table(self, edges, areal_density_1e15, mixing_1e15, compositions):
+        """The slice table on slice edges of auxiliary depth.
 
         Returns
         -------
-        ndarray, shape (n_slices, n_interfaces + 1)
+        widths_1e15 : ndarray, shape (n_slices,)
+            Areal density of each slice (the atoms it holds).
+        fractions : ndarray, shape (n_slices, n_species)
         """
-        depth = np.cumsum(np.asarray(areal_density_1e15, dtype=float))
-        n = self.edges_1e15.size - 1
-        steps = np.empty((n, self.n_interfaces))
-        for i in range(self.n_interfaces):
-            steps[:, i] = step_average(self.edges_1e15, depth[i], float(mixing_1e15[i]))
-        w = np.empty((n, self.n_interfaces + 1))
-        w[:, 0] = 1.0 - steps[:, 0] if self.n_interfaces else 1.0
-        for k in range(1, self.n_interfaces):
-            w[:, k] = steps[:, k - 1] - steps[:, k]
-        if self.n_interfaces:
-            w[:, -1] = steps[:, -1]
-        np.clip(w, 0.0, None, out=w)
-        w /= w.sum(axis=1, keepdims=True)
-        return w
+        widths, fractions, _ = stack_table(edges, areal_density_1e15, mixing_1e15,
+                                           compositions, self.substrate)
+        return widths, fractions
 
-    def fractions(self, areal_density_1e15, mixing_1e15, compositions):
-        """Atom fractions on the grid.
-
-        Parameters
-        ----------
-        areal_density_1e15 : array_like, shape (n_thick,)
-        mixing_1e15 : array_like, shape (n_interfaces,)
-        compositions : array_like, shape (n_layers, n_species)
-            Atom fractions of each layer (rows on the simplex).
-
-        Returns
-        -------
-        ndarray, shape (n_slices, n_species)
-        """
-        w = self.weights(areal_density_1e15, mixing_1e15)
-        comps = np.asarray(compositions, dtype=float)
-        return w[:, : self.n_layers] @ comps
+    def points(self, depth, areal_density_1e15, mixing_1e15, compositions):
+        """Atom fractions ``(n, n_species)`` at auxiliary depths (see :mod:`._stack`)."""
+        return point_composition(depth, areal_density_1e15, mixing_1e15, compositions,
+                                 self.substrate)[0]
 
 
 def alr_to_fractions(logratios):
@@ -218,6 +186,20 @@ class NodeProfile:
         """Parameters (start, then steps; species-major) to node log-ratios, shape (K, m-1)."""
         p = np.asarray(params, dtype=float).reshape(self.n_ratios, self.n_nodes)
         return np.cumsum(p, axis=1).T
+
+    def fractions_at(self, params, depth_1e15):
+        """Atom fractions at depths (1e15 atoms/cm2), shape (n, n_species): the node
+        log-ratios interpolated linearly in depth (the point values, not slice averages)."""
+        depth = np.asarray(depth_1e15, dtype=float)
+        y_nodes = self.node_logratios(params)
+        y = np.empty((depth.size, self.n_ratios))
+        for j in range(self.n_ratios):
+            y[:, j] = np.interp(depth, self.node_depth_1e15, y_nodes[:, j])
+        out = np.zeros((depth.size, self.n_species))
+        out[:, self.columns] = alr_to_fractions(y)
+        if self.below == "vacuum":
+            out[depth > self.depth_1e15] = 0.0
+        return out
 
     def fractions(self, params):
         """Atom fractions on the grid, shape (n_slices, n_species)."""

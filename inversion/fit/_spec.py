@@ -22,7 +22,8 @@ from ._priors import Prior, make_prior, parse_prior
 from ._roles import DEFAULT_STOPPING_SD, NUISANCE_NAMES, NUISANCES, Role, RoleIndex
 
 __all__ = ["Parameter", "FitSettings", "FitSpec", "read_fit_settings", "bind_fit",
-           "parse_fit", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD"]
+           "parse_fit", "stopping_widths", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD",
+           "USER_TABLE_WIDTHS"]
 
 _TOP_KEYS = {
     "profile": "'layers' or 'nodes'",
@@ -291,10 +292,44 @@ def parse_fit(fit: dict | None, run, model) -> FitSpec:
     """
     source = str(getattr(run, "source", "run.toml"))
     settings = read_fit_settings(fit, source, int(getattr(model, "n_channels", 0) or 0))
-    return bind_fit(settings, model.sample_columns(), model.default_nuisance())
+    return bind_fit(settings, model.sample_columns(), model.default_nuisance(),
+                    stopping_widths(run, model.sample_columns()))
 
 
-def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
+#: prior widths (scale sd, slope sd) of the stopping of an element whose stopping the run file
+#: replaces by the user's own table: as well known as the user says (see DEFAULT_STOPPING_SD)
+USER_TABLE_WIDTHS = (DEFAULT_STOPPING_SD, 0.02)
+
+
+def stopping_widths(run, columns) -> dict:
+    """``{element: (scale_sd, slope_sd)}``: the default prior widths of each element's stopping
+    scale and slope (:func:`forward.stopping_uncertainty`, the measured spread against NIST
+    ASTAR; oxygen in a layer with other elements counts as oxygen bound in an oxide;
+    :data:`USER_TABLE_WIDTHS` for an element with a user table)."""
+    import forward
+
+    physics = getattr(run, "physics", None)
+    tables = dict(getattr(physics, "stopping_tables", {}) or {})
+    carbon = getattr(physics, "carbon", "graphite")
+    ion = getattr(getattr(run, "beam", None), "species", "4He")
+    oxide = False
+    if "O" in columns.elements:
+        o = columns.elements.index("O")
+        for layer in columns.layers:
+            present = {int(columns.species_element[c])
+                       for c in np.flatnonzero(np.asarray(layer.composition) > 0)}
+            oxide = oxide or (o in present and len(present) > 1)
+    out = {}
+    for el in columns.elements:
+        if el in tables:
+            out[el] = USER_TABLE_WIDTHS
+        else:
+            out[el] = tuple(float(x) for x in forward.stopping_uncertainty(
+                el, ion, carbon=carbon, oxide=oxide and el == "O"))
+    return out
+
+
+def bind_fit(settings: FitSettings, columns, default_nuisance, widths=None) -> FitSpec:
     """The :class:`FitSpec` of checked settings for one sample.
 
     Parameters
@@ -305,7 +340,11 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     default_nuisance : forward.Nuisance
         The run file's calibration, resolution and stopping scales (centres of the default
         nuisance priors).
+    widths : dict, optional
+        ``{element: (scale_sd, slope_sd)}`` of the default stopping priors
+        (:func:`stopping_widths`); default :data:`DEFAULT_STOPPING_SD` and 0.02 for every element.
     """
+    widths = dict(widths or {})
     where = _Where(settings.source)
     layers = list(columns.layers)
     if not layers:
@@ -345,10 +384,12 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     for kind in NUISANCES:
         field_value = getattr(default_nuisance, kind.role.field)
         if kind.role.per_element:
+            field_value = np.asarray(field_value, dtype=float)
             for e, el in enumerate(spec.elements):
-                v = float(field_value[e])
+                v = float(field_value[e]) if field_value.size else 0.0
+                w = widths.get(el, USER_TABLE_WIDTHS)
                 available[kind.name.format(element=el)] = (
-                    kind.unit, kind.role, e, lambda kind=kind, v=v: kind.prior(v))
+                    kind.unit, kind.role, e, lambda kind=kind, v=v, w=w: kind.prior(v, w))
         else:
             v = float(field_value)
             available[kind.name] = (kind.unit, kind.role, 0, lambda kind=kind, v=v: kind.prior(v))
@@ -361,12 +402,15 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     expanded = []
     for name in settings.fixed:
         if name == "stopping":
-            expanded += [n for n in nuisance_like if available[n][1] is Role.STOPPING]
+            # the stopping is trusted: its scales and its energy dependence
+            expanded += [n for n in nuisance_like
+                         if available[n][1] in (Role.STOPPING, Role.SLOPE)]
         elif name in nuisance_like:
             expanded.append(name)
         else:
             raise InputError(f"{name!r} is not a nuisance; nuisances: "
-                             f"{', '.join(nuisance_like)} (or 'stopping' for all)",
+                             f"{', '.join(nuisance_like)} (or 'stopping' for every "
+                             "stopping scale and slope)",
                              where=where("fixed"))
     spec.fixed = tuple(expanded)
 

@@ -46,7 +46,7 @@ import numpy as np
 from scipy.special import ndtr
 
 __all__ = ["half_boxes", "ramp_integral", "slice_amounts", "stack_table",
-           "refinement_points", "REFINEMENT_U"]
+           "refinement_points", "point_composition", "REFINEMENT_U"]
 
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
@@ -178,3 +178,35 @@ def refinement_points(areal_density_1e15, mixing_1e15, refine):
     w = np.asarray(mixing_1e15, dtype=float)
     pts = [z[k] + w[k] * REFINEMENT_U for k in range(z.size) if refine[k]]
     return np.concatenate(pts) if pts else np.zeros(0)
+
+
+def _cdf(x, w):
+    """``Phi(x / w)``; for ``w = 0`` the sharp step (1/2 exactly at 0)."""
+    safe = np.where(w > 0, w, 1.0)
+    sharp = np.where(x > 0, 1.0, np.where(x < 0, 0.0, 0.5))
+    return np.where(w > 0, ndtr(x / safe), sharp)
+
+
+def point_composition(z, areal_density_1e15, mixing_1e15, compositions, substrate: bool):
+    """Composition and atom density at auxiliary depths ``z`` (see module notes).
+
+    Returns
+    -------
+    fractions : numpy.ndarray, shape (n_points, n_species)
+        ``sum_h B_h(z) c_h / D(z)``; zeros where ``D = 0`` (below a sample without substrate).
+    density : numpy.ndarray, shape (n_points,)
+        ``D(z)``, atoms per unit of auxiliary depth (1 inside thick layers).
+    """
+    top, bottom, width, layer = half_boxes(areal_density_1e15, mixing_1e15, substrate)
+    zz = np.asarray(z, dtype=float)[None, :]
+    a, w = top[:, None], width[:, None]
+    finite = np.isfinite(bottom)[:, None]
+    b = np.where(finite, bottom[:, None], 0.0)
+    dens = _cdf(zz - a, w) + _cdf(-zz - a, w)
+    dens = dens - np.where(finite, _cdf(zz - b, w) + _cdf(-zz - b, w), 0.0)
+    dens = np.maximum(dens, 0.0)  # (halves, points)
+    comps = np.asarray(compositions, dtype=float)[layer]  # (halves, species)
+    total = dens.sum(axis=0)
+    atoms = dens.T @ comps
+    safe = np.where(total > 0, total, 1.0)
+    return np.where(total[:, None] > 1e-15, atoms / safe[:, None], 0.0), total
