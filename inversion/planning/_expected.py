@@ -49,8 +49,11 @@ from ..fit._roles import Role
 
 __all__ = ["prior_precision", "difference_steps", "Response", "response", "Gaussian", "posterior", "Limit",
            "Uncertainty", "Analysis", "COUNTS", "derived_gradients", "charge_for_sd",
-           "UNDETERMINED_TOLERANCE", "MAX_CHARGE_UC", "TYPICAL_MAX_CHARGE_UC"]
+           "UNDETERMINED_TOLERANCE", "COUNT_FLOOR", "MAX_CHARGE_UC", "TYPICAL_MAX_CHARGE_UC"]
 
+#: channels expecting less than this fraction of the window's largest count are left out of
+#: the information (:meth:`Response.fisher`)
+COUNT_FLOOR = 1e-9
 #: eigenvalues of the unit-diagonal precision below this are directions without information
 UNDETERMINED_TOLERANCE = 1e-10
 #: the most charge a backscattering measurement usually takes (1-100 uC, common practice)
@@ -129,10 +132,18 @@ class Response:
 
     def fisher(self, ratio: float = 1.0) -> np.ndarray:
         """Expected Fisher information of the window counts at ``ratio`` times the reference
-        exposure (module docstring)."""
+        exposure (module docstring).
+
+        Channels whose expected counts lie below :data:`COUNT_FLOOR` times the window's
+        largest are left out: the kernel's channel integrals are differences of large numbers
+        (round-off about 1e-12 of them), so there both the counts and their differences are
+        round-off, and ``g^2 / mu`` of two round-off numbers can be anything (one such channel
+        at 1e-26 counts once outweighed the whole spectrum), while a true tail channel that
+        far down holds no information worth the name.
+        """
         mu = ratio * self.signal + self.background
         g = self.jacobian * np.where(self.scales, ratio, 1.0)[:, None]
-        keep = mu > 0
+        keep = mu > COUNT_FLOOR * float(np.max(mu, initial=0.0))
         out = (g[:, keep] / mu[keep]) @ g[:, keep].T
         return 0.5 * (out + out.T)
 
