@@ -117,7 +117,7 @@ def _shares(spec, layer_index: int) -> list[float]:
     return list((x / rest)[:-1])
 
 
-def _nominal_values(objective, nominal: dict, source: str) -> dict:
+def _nominal_values(objective, nominal: dict) -> dict:
     """Values of the free parameters that the run file does not give as nuisances."""
     spec = objective.spec
     values = {}
@@ -139,11 +139,11 @@ def _nominal_values(objective, nominal: dict, source: str) -> dict:
         elif not p.role.is_nuisance:
             raise InputError(f"no nominal value for {p.name}; give --nominal {p.name}=VALUE",
                              where="command line: --nominal")
-    for name, value in values.items():
-        if name in nominal and name.endswith(".mixing") and value <= 0:
-            raise InputError(f"a width of {value:g} gives the spectrum no first-order response "
-                             "to it; give the width you expect (> 0)",
-                             where=f"command line: --nominal {name}")
+    for p in spec.parameters:
+        if p.role is Role.MIXING and values.get(p.name) == 0:
+            raise InputError("a width of 0 (a sharp interface) gives the spectrum no first-order "
+                             "response to it; give the width you expect (> 0)",
+                             where=f"command line: --nominal {p.name}")
     return values
 
 
@@ -171,7 +171,7 @@ class _Geometry:
             raise InputError(f"{unknown[0]} is not a free parameter of this fit; free: "
                              f"{', '.join(self.names)}", where=f"command line: --nominal "
                                                                f"{unknown[0]}")
-        values = _nominal_values(objective, nominal, run.source)
+        values = _nominal_values(objective, nominal)
         self.theta = nominal_theta(objective, values)
         self.prior = np.zeros(len(self.names))
         for i, p in enumerate(self.parameters):
