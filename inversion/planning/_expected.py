@@ -47,8 +47,8 @@ from scipy.optimize import brentq
 from ..fit._information import fd_steps
 from ..fit._roles import Role
 
-__all__ = ["prior_precision", "difference_steps", "Response", "response", "Gaussian", "posterior", "Limit",
-           "Uncertainty", "Analysis", "COUNTS", "derived_gradients", "charge_for_sd",
+__all__ = ["prior_precision", "difference_steps", "Response", "response", "Gaussian",
+           "posterior", "Limit", "Uncertainty", "Analysis", "COUNTS", "derived_gradients", "charge_for_sd",
            "UNDETERMINED_TOLERANCE", "COUNT_FLOOR", "MAX_CHARGE_UC", "TYPICAL_MAX_CHARGE_UC"]
 
 #: channels expecting less than this fraction of the window's largest count are left out of
@@ -347,7 +347,7 @@ class Uncertainty:
         Expected posterior sd (inf: not determined).
     sd_counting : float
         The sd if every nuisance were known exactly (counting statistics and the sample's
-        own priors only).
+        own priors only); NaN for a nuisance itself.
     limits : tuple of Limit
         The parts of the variance by decreasing share (parts under 1 % left out).
     """
@@ -402,8 +402,9 @@ class Analysis:
         a = np.asarray(a, dtype=float)
         var = self.gauss.variance(a)
         sd = math.sqrt(var)
-        sd_counting = (math.sqrt(self.counting.variance(a[self.rest])) if self.rest
-                       else math.nan)
+        sample_part = a[self.rest]
+        sd_counting = (math.sqrt(self.counting.variance(sample_part))
+                       if self.rest and np.any(sample_part != 0) else math.nan)
         limits = []
         b = self.gauss.times(a) if math.isfinite(var) and var > 0 else None
         if b is not None:

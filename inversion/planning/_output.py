@@ -24,6 +24,8 @@ __all__ = ["write_plan", "plan_reporting", "figure_name", "PLAN_FILES", "MAX_MD_
 PLAN_FILES = ("plan.csv", "plan.md")
 #: plan.md lists at most this many set-ups (plan.csv holds them all)
 MAX_MD_ROWS = 60
+#: and at most this many strongly correlated pairs of parameters
+MAX_PAIRS = 8
 
 
 def figure_name(key: str, fmt: str = "png") -> str:
@@ -170,9 +172,10 @@ def write_md(table, path, figures=(), check=None) -> Path:
                 pairs.append((abs(corr[i, j]), table.parameters[i], table.parameters[j],
                               corr[i, j]))
     if pairs:
-        lines += ["", "Strong posterior correlations (|rho| >= 0.7): "
-                  + "; ".join(f"{a} and {b} {r:+.2f}" for _, a, b, r in sorted(pairs,
-                                                                                 reverse=True))
+        pairs = sorted(pairs, reverse=True)
+        lines += ["", "Strongest posterior correlations (|rho| >= 0.7): "
+                  + "; ".join(f"{a} and {b} {r:+.2f}" for _, a, b, r in pairs[:MAX_PAIRS])
+                  + (f"; and {len(pairs) - MAX_PAIRS} more" if len(pairs) > MAX_PAIRS else "")
                   + "."]
     if table.target_sd is not None:
         c = best.charge_for_target_uC

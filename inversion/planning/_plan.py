@@ -250,7 +250,7 @@ class _Geometry:
         return out
 
 
-def _check_target(target, quantities, gradients_nonzero) -> tuple[str, float | None]:
+def _check_target(target, quantities) -> tuple[str, float | None]:
     name, sd, relative = target
     names = [q.name for q in quantities]
     if name not in names:
@@ -314,7 +314,7 @@ def plan(run, *, vary=None, target=None, nominal=None, rel_step: float = 1e-3) -
     first = geometries[0]
     quantities = first.quantities()
     if wanted is not None:
-        rank_by, target_sd = _check_target(wanted, quantities, None)
+        rank_by, target_sd = _check_target(wanted, quantities)
     else:
         rank_by = next(q.name for q in quantities if q.sample)
         target_sd = None

@@ -15,7 +15,6 @@ import math
 import warnings
 from dataclasses import dataclass, field
 
-import forward
 from forward import InputError
 
 __all__ = ["VARY_KEYS", "EXPOSURE_KEYS", "SetUp", "parse_vary", "parse_assignments",
