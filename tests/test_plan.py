@@ -314,6 +314,18 @@ def test_the_table(grid):
     assert "sd.film.thickness_nm" in records[0] and "charge_for_target_uC" in records[0]
 
 
+def test_a_target_without_an_sd_only_ranks():
+    table = quiet_plan(scenario(), vary={"geometry.tilt_deg": [0, 50]}, nominal=NOMINAL,
+                       target="film.thickness_nm")
+    assert table.rank_by == "film.thickness_nm" and table.target_sd is None
+    assert list(table.column("film.thickness_nm")) == sorted(table.column("film.thickness_nm"))
+    assert all(row.charge_for_target_uC is None for row in table)
+    assert "charge_for_target_uC" not in table.records()[0]
+    # a relative target: 1 % of the nominal thickness (forward's own nm conversion)
+    table = quiet_plan(scenario(), nominal=NOMINAL, target="film.thickness_nm=1%")
+    assert table.target_sd == pytest.approx(0.01 * scenario().layers[1].thickness_nm)
+
+
 def test_validity_warnings():
     run = scenario()
     with warnings.catch_warnings(record=True) as caught:
