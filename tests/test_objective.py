@@ -149,13 +149,13 @@ def test_roles_carry_positions_and_targets(toy):
     # physical limits, role by role: a share must lie inside (0, 1), a scale above 0; a slope
     # may take any sign
     for i, bad in ((0, -1.0), (1, -0.1), (2, 1.0), (2, 0.0), (3, 0.0), (5, -2.0), (7, 0.0),
-                   (8, 0.0), (11, -0.5)):
+                   (7, 0.1), (7, 6.0), (8, 0.0), (9, 0.6), (10, -0.5), (11, -0.5)):
         outside = theta.copy()
         outside[i] = bad
         assert obj.unpack(outside) is None, (obj.names[i], bad)
     negative_offset = theta.copy()
     negative_offset[4] = -3.0  # an offset may be negative
-    negative_offset[9] = -0.5  # and a slope
+    negative_offset[9] = -0.3  # and a slope (inside its limits, -0.5 to 0.5)
     assert obj.unpack(negative_offset) is not None
 
 
