@@ -10,7 +10,7 @@ import pytest
 
 import forward
 
-from test_model import FILM_ON_SUBSTRATE, make_run
+from forward_runs import FILM_ON_SUBSTRATE, make_run
 
 HEAVY_FILM_ON_SI = """
 [[layer]]
