@@ -20,6 +20,7 @@ from forward import InputError
 from ._about import PROGRAM, version
 from .fit._bands import posterior_bands
 from .fit._derived import depth_nm
+from .fit._nodes import depth_resolution
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .results._outputs import WriterLock, check_output, spectrum_file
@@ -82,6 +83,15 @@ def _check_worth_fitting(run, counts, spectrum):
                          "spectrum with counts", where=source)
 
 
+def _node_resolution(settings, run, model):
+    """The run's depth resolution, from which the free-form profile's node count defaults
+    (None for the layer model)."""
+    if settings.profile != "nodes":
+        return None
+    physics = getattr(run, "physics", None)
+    return depth_resolution(model, getattr(physics, "slice_fraction", 0.25))
+
+
 def prepare(run, spectrum, *, build_model=None, likelihood=True):
     """Build the objective for a run and a spectrum (no sampling, no file).
 
@@ -109,7 +119,8 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
                                            first_channel=settings.first_channel)
     model = build_model()
     columns = model.sample_columns()
-    spec = bind_fit(settings, columns, model.default_nuisance(), stopping_widths(run, columns))
+    spec = bind_fit(settings, columns, model.default_nuisance(), stopping_widths(run, columns),
+                    resolution=_node_resolution(settings, run, model))
     objective = Objective(spec, counts, build_model, model, measured=measured,
                           likelihood=likelihood)
     return run, objective
