@@ -20,7 +20,7 @@ from forward import InputError
 from ._about import PROGRAM, version
 from .fit._bands import posterior_bands
 from .fit._derived import depth_nm
-from .fit._nodes import depth_resolution
+from .fit._nodes import depth_resolution, describe_nodes
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .results._outputs import WriterLock, check_output, spectrum_file
@@ -127,7 +127,8 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
 
 
 def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force=False,
-           workers=1, progress=True, command=None, build_model=None, likelihood=True) -> Result:
+           workers=1, progress=True, command=None, build_model=None, likelihood=True,
+           announce=None) -> Result:
     """Sample the posterior of the run's free parameters given a measured spectrum.
 
     Parameters
@@ -155,6 +156,9 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
         The command line, stored in the file.
     build_model, likelihood
         See :func:`prepare` (for tests and studies).
+    announce : callable, optional
+        ``announce(line)`` with what the fit will do that the run file left to defaults (the
+        free-form profile's nodes), before sampling.
 
     Returns
     -------
@@ -166,6 +170,8 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     inputs = {"run file": run_path if isinstance(run_path, (str, Path)) else None,
               "spectrum file": spectrum_file(spectrum)}
     run, objective = prepare(run, spectrum, build_model=build_model, likelihood=likelihood)
+    if announce is not None and objective.spec.profile == "nodes":
+        announce(describe_nodes(objective.spec.nodes, objective.spec.species))
     max_steps = objective.spec.max_steps if max_steps is None else max_steps
     if int(max_steps) < 1:
         raise InputError(f"max steps must be at least 1, got {max_steps}", where="--max-steps")
@@ -208,6 +214,8 @@ def invert_reporting(run, spectrum, output, *, quiet=False, **kwargs) -> Result:
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", NotConvergedWarning)
+        if not quiet:
+            kwargs.setdefault("announce", print)
         result = invert(run, spectrum, output, progress=not quiet, **kwargs)
     loud_ones = [w for w in caught if issubclass(w.category, NotConvergedWarning)]
     for w in caught:

@@ -13,8 +13,9 @@ Defaults (README.md, "Profile model 2: free-form nodes"):
   what the spectrum cannot see, and the smoothness prior alone decides them.
 * **species**: every species of the layers the range touches (a mixed model: its layers and
   the layers just above and below it, whose atoms can diffuse in).
-* **reference** (the last species, the log-ratios' denominator): the species with the most
-  atoms over the range in the run file's sample, so that it is present everywhere there.
+* **reference** (the last species, the log-ratios' denominator): over a substrate whose
+  composition the deepest node holds, the substrate's main species; otherwise the species with
+  the most atoms over the range in the run file's sample.
 """
 
 from __future__ import annotations
@@ -25,8 +26,8 @@ import numpy as np
 
 from forward import InputError
 
-__all__ = ["NODE_KEYS", "node_settings", "depth_resolution", "MIN_NODES", "MAX_NODES",
-           "AUTO_MAX_NODES"]
+__all__ = ["NODE_KEYS", "node_settings", "depth_resolution", "describe_nodes", "MIN_NODES",
+           "MAX_NODES", "AUTO_MAX_NODES"]
 
 NODE_KEYS = {
     "count": "number of nodes, 3 to 60 (default: from the depth resolution)",
@@ -184,8 +185,14 @@ def node_settings(nodes: dict, *, species, layers, where, resolution=None) -> di
             raise InputError("the run's layers over the node range hold one species; list "
                              f"at least two in species (from {list(species)})",
                              where=where("nodes.species"))
-        # the most abundant species over the range is the reference (last)
+        # the reference (last): below a plain range over a substrate, the substrate's main
+        # species (the deepest node holds it into the substrate); otherwise the species with
+        # the most atoms over the range
         ref = max(present, key=lambda c: (weights[c], -c))
+        if not region and below == "hold":
+            main = int(np.argmax(layers[-1].composition))
+            if main in present:
+                ref = main
         cols = [c for c in present if c != ref] + [ref]
 
     # ----- count -----
@@ -216,7 +223,34 @@ def node_settings(nodes: dict, *, species, layers, where, resolution=None) -> di
     # mixed model the bottom of the films (the substrate's top), as the layer model does
     total_depth = float(tops[-1]) if region else bottom
     return dict(count=count, top_1e15=top, bottom_1e15=bottom, depth_1e15=bottom,
-                total_depth_1e15=total_depth,
+                total_depth_1e15=total_depth, layer_names=[names[i] for i in region],
                 node_depth_1e15=np.linspace(top, bottom, count), step_sd=step_sd,
                 start_sd=start_sd, below=below, columns=cols, layers=region,
                 defaults=defaults, resolution_1e15=res)
+
+
+def describe_nodes(nodes: dict, species) -> str:
+    """One paragraph saying what the free-form profile is, every default marked (printed by
+    ``sondage invert``)."""
+    cols = [species[c] for c in nodes["columns"]]
+    marks = set(nodes.get("defaults", ()))
+
+    def d(key):
+        return " (default)" if key in marks else ""
+
+    top, bottom, count = nodes["top_1e15"], nodes["bottom_1e15"], nodes["count"]
+    spacing = (bottom - top) / max(count - 1, 1)
+    res = nodes.get("resolution_1e15", math.nan)
+    res_text = (f"; depth resolution there {res:.3g}e15 (FWHM), so {res / spacing:.2g} nodes "
+                "per resolution" if math.isfinite(res) and res > 0 else "")
+    if nodes["below"] == "layers":
+        where = f"over layers {nodes.get('layer_names', nodes['layers'])} ({top:g} to " \
+                f"{bottom:g}e15 atoms/cm2), the run file's layers above and below"
+    else:
+        where = (f"from the surface to {bottom:g}e15 atoms/cm2{d('depth_1e15')}, below it "
+                 f"{'the deepest node holds' if nodes['below'] == 'hold' else 'vacuum'}"
+                 f"{d('below')}")
+    return (f"free-form profile: {count} nodes{d('count')} {where}; node spacing "
+            f"{spacing:.3g}e15{res_text}; species {', '.join(cols)}{d('species')}, log-ratios "
+            f"to {cols[-1]}; first node sd {nodes['start_sd']:g}{d('start_sd')}, step sd "
+            f"{nodes['step_sd']:g}{d('step_sd')}")
