@@ -184,7 +184,8 @@ def main(argv=None):
     ap.add_argument("--scenario", choices=tuple(TEXT), default="layers")
     ap.add_argument("--workers", type=int, default=1)
     ap.add_argument("--max-steps", type=int, default=20000)
-    ap.add_argument("--moves", choices=("stretch", "differential"), default="differential",
+    ap.add_argument("--moves", choices=("stretch", "differential", "subspace"),
+                    default="differential",
                     help="emcee moves (default: differential, the program's own default)")
     ap.add_argument("--walkers", type=int, default=0,
                     help="walkers (default 0: the program's own choice)")

@@ -39,7 +39,7 @@ _TOP_KEYS = {
     "walkers": "number of walkers (0: max(32, 4 x free parameters))",
     "band_draws": "posterior draws used for bands and predictive spectra (>= 10)",
     "nodes": "table for profile = 'nodes'",
-    "moves": "'stretch' or 'differential'",
+    "moves": "'stretch', 'differential' or 'subspace'",
     "depth_limit_1e15": "depth of the model's slice grid (1e15 atoms/cm2, > 0)",
 }
 #: the layer-model quantities a prior may not put mostly below zero
@@ -241,9 +241,9 @@ def read_fit_settings(fit: dict | None, source: str, n_channels: int) -> FitSett
     # the stretch move on both the 21-parameter node benchmark and the 10-parameter layer
     # benchmark (benchmarks/RESULTS.md, "Inversion"): they are the default for both models
     moves = fit.get("moves", "differential")
-    if moves not in ("stretch", "differential"):
-        raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential'",
-                         where=where("moves"))
+    if moves not in ("stretch", "differential", "subspace"):
+        raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential', "
+                         "'subspace'", where=where("moves"))
     out.moves = moves
     if "depth_limit_1e15" in fit:
         out.depth_limit_1e15 = _number(fit["depth_limit_1e15"], "depth_limit_1e15", where,
