@@ -171,3 +171,22 @@ def test_recovers_a_smooth_three_species_profile(tmp_path):
     fraction = float(np.mean(inside))
     print(f"truth inside the 95 % bands at {100 * fraction:.1f} % of depth points x species")
     assert fraction >= 0.85
+
+
+def test_mixed_model_result_and_report(tmp_path):
+    # a short run of the mixed model: the result stores the nodes over the zone's range, bands
+    # at four points per node interval there, and the report draws them
+    path = _run(tmp_path, 'layers = ["film"]\nspecies = ["Pt", "Si", "Ni"]\ncount = 5',
+                fit="max_steps = 30\ncheck_every = 10")
+    mu, _ = _truth(path)
+    counts = np.random.default_rng(4).poisson(mu)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", inversion.NotConvergedWarning)
+        result = inversion.invert(path, counts, tmp_path / "mixed.h5", seed=1, progress=False)
+    assert np.allclose(result.profile["node_depth"], np.linspace(100.0, 300.0, 5))
+    depth = np.asarray(result.profile["depth"])
+    assert np.all(np.isin(np.linspace(100.0, 300.0, 17), depth))
+    above = depth < 100.0
+    assert np.allclose(np.asarray(result.profile["Pt"])[:, above], 1.0)
+    inversion.build_report(tmp_path / "mixed.h5", tmp_path / "report")
+    assert (tmp_path / "report" / "profile.png").exists()
