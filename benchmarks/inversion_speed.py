@@ -34,6 +34,7 @@ _sys.path[:] = [p for p in _sys.path
 import argparse
 import json
 import os
+import resource
 import platform
 import sys
 import tempfile
@@ -179,6 +180,13 @@ def simulate(run_path, scenario, seed):
     return np.random.default_rng(seed).poisson(expected)
 
 
+def _cpu_s() -> float:
+    """CPU seconds of this process and of its finished children (the worker processes)."""
+    own, kids = (resource.getrusage(w) for w in (resource.RUSAGE_SELF,
+                                                   resource.RUSAGE_CHILDREN))
+    return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--scenario", choices=tuple(TEXT), default="layers")
@@ -202,21 +210,24 @@ def main(argv=None):
         # compile (or load) the numba kernel before timing
         forward.ForwardModel(forward.load_run(run_path), n_channels=counts.size)
         t0 = time.perf_counter()
+        cpu0 = _cpu_s()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", NotConvergedWarning)
             res = invert(run_path, counts, Path(tmp) / "out.h5", seed=args.seed,
                          workers=args.workers, progress=False)
         wall = time.perf_counter() - t0
+        cpu = _cpu_s() - cpu0
     d = res.diagnostics
     tau = np.asarray(d["autocorr_time"], dtype=float)
     ess = np.asarray(d["ess"], dtype=float)
     out = {
         "scenario": args.scenario, "moves": args.moves, "workers": args.workers,
-        "wall_s": round(wall, 2), "converged": bool(d["converged"]),
+        "wall_s": round(wall, 2), "cpu_s": round(cpu, 1), "converged": bool(d["converged"]),
         "steps": int(d["steps"]), "walkers": int(d["walkers"]),
         "max_autocorr_steps": round(float(np.nanmax(tau)), 1),
         "min_ess": round(float(np.nanmin(ess)), 1),
         "ess_per_s": round(float(np.nanmin(ess)) / wall, 2),
+        "ess_per_cpu_s": round(float(np.nanmin(ess)) / cpu, 2),
         "mean_acceptance": round(float(d["mean_acceptance"]), 3),
         "n_free_parameters": len(res.names),
         "rhat_max": round(float(d.get("rhat_max", float("nan"))), 4),
