@@ -36,7 +36,7 @@ _TOP_KEYS = {
     "tau_multiple": "chain length wanted, in autocorrelation times (>= 1)",
     "max_steps": "step cap (>= 1)",
     "check_every": "steps between convergence checks (>= 10)",
-    "walkers": "number of walkers (0: max(32, 4 x free parameters))",
+    "walkers": "number of walkers (0: automatic, see README)",
     "band_draws": "posterior draws used for bands and predictive spectra (>= 10)",
     "nodes": "table for profile = 'nodes'",
     "moves": "'stretch', 'differential' or 'subspace'",
@@ -175,7 +175,12 @@ class FitSpec:
     @property
     def n_walkers(self) -> int:
         ndim = len(self.parameters)
-        n = self.walkers or max(32, 4 * ndim)
+        # the free-form profile: the fewest walkers the moves allow.  The chain must be 50
+        # autocorrelation times long whatever the walker count, and on the 22-parameter node
+        # benchmark 46 walkers mixed as fast per step as 84 (tau 79 and 83 steps,
+        # benchmarks/RESULTS.md), so every further walker only costs evaluations
+        auto = 2 * ndim + 2 if self.profile == "nodes" else max(32, 4 * ndim)
+        n = self.walkers or auto
         n = max(n, 2 * ndim + 2)
         return n + (n % 2)
 
