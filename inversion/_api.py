@@ -276,8 +276,10 @@ def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
         write_start(output, thetas[best], float(logps[best]), spec.names, searches=thetas,
                     search_log_posterior=logps,
                     method=f"{len(logps)} independent searches (differential evolution in "
-                           "prior bounds, Nelder-Mead polish); walkers in one group per "
-                           "search, drawn from its Laplace approximation")
+                           "prior bounds, Nelder-Mead polish"
+                           + (", L-BFGS-B polish" if spec.profile == "nodes" else "")
+                           + "); walkers in one group per search, drawn from its Laplace "
+                           "approximation")
 
     def on_step(step):
         if bar is not None:

@@ -56,3 +56,22 @@ def test_resume_with_subspace_moves_is_exact(toy, tmp_path):
     second = chain(60, tmp_path / "two.h5")
     assert np.array_equal(second.get_chain(), one.get_chain())
     assert np.array_equal(second.get_log_prob(), one.get_log_prob())
+
+
+def test_gradient_polish_climbs_and_is_the_same_with_workers(toy):
+    # the polish only ever improves a start, and two workers give the same point as one
+    # process (the same evaluations, in the same order)
+    from inversion.sample._polish import gradient_polish
+    from inversion.sample._start import prior_bounds
+    from inversion.sample._workers import worker_pool
+
+    fit = {"profile": "nodes", "nodes": {"count": 6, "depth_1e15": 480.0},
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]}
+    obj = toy.objective(fit)
+    bounds = prior_bounds(obj)
+    start = np.concatenate([np.full(obj.ndim - 1, 0.3), [1.02]])
+    theta, logp = gradient_polish(obj, start, bounds, maxiter=40)
+    assert logp > obj.log_posterior(start) and logp == obj.log_posterior(theta)
+    with worker_pool(obj, 2) as pool:
+        pooled, logp2 = gradient_polish(obj, start, bounds, pool=pool, maxiter=40)
+    assert np.array_equal(theta, pooled) and logp == logp2

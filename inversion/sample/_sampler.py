@@ -20,6 +20,7 @@ from ._convergence import (WALKER_GROUPS, SamplerStatus, autocorr_summary, group
 from ._start import (START_MAXITER, START_POPSIZE, find_start, find_starts, laplace_covariance,
                      prior_bounds, starts_disagree, walker_ball, walker_groups)
 from ._moves import SubspaceDEMove
+from ._polish import gradient_polish
 from ._workers import worker_log_posterior, worker_pool
 
 __all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt"]
@@ -108,6 +109,12 @@ class Sampler:
         thetas, logps = find_starts(self.objective, self.bounds, seed=self.seed, pool=pool,
                                     searches=WALKER_GROUPS, popsize=self.START_POPSIZE,
                                     maxiter=self.START_MAXITER)
+        if getattr(self.objective.spec, "profile", "layers") == "nodes":
+            # tens of node parameters: the searches stop short of the mode; a gradient
+            # polish puts each group's walkers where the posterior is (sample/_polish.py)
+            for g in range(thetas.shape[0]):
+                thetas[g], logps[g] = gradient_polish(self.objective, thetas[g], self.bounds,
+                                                      pool=pool)
         covs = [laplace_covariance(self.objective, th, self.bounds) for th in thetas]
         best = int(np.argmax(logps))
         warning = starts_disagree(thetas, logps, covs[best], self.objective.spec.names)
