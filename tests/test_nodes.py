@@ -150,27 +150,43 @@ def test_mixed_model_conserves_atoms(tmp_path):
         assert at[0] == pytest.approx([1.0, 0.0, 0.0]) and at[1] == pytest.approx([0, 0, 1.0])
 
 
+#: an invented smooth three-species interdiffusion profile: log-ratios ln(Pt/Si), ln(Ni/Si) at
+#: seven nodes from the surface to 450e15 atoms/cm2 (Pt-rich at the surface, Ni in the middle,
+#: Si below; every species present everywhere, as after a long anneal)
+SMOOTH_PT = [3.0, 2.0, 0.5, -1.0, -2.0, -2.5, -2.5]
+SMOOTH_NI = [1.0, 1.5, 2.0, 1.0, -0.5, -1.5, -2.0]
+
+
 @pytest.mark.slow
 def test_recovers_a_smooth_three_species_profile(tmp_path):
-    # the invented interdiffused Pt / Ni / Si sample, inverted with the default node count;
-    # the truth must lie inside the 95 % bands at most depths (the bands are pointwise, so
-    # about 95 % is nominal; the smoothness prior and the node spacing add a little bias)
-    path = _run(tmp_path, 'species = ["Pt", "Ni", "Si"]', fit="max_steps = 1600")
-    mu, truth = _truth(path)
-    counts = np.random.default_rng(2).poisson(mu)
+    # the truth is a smooth profile the node model can hold (seven nodes, fractions linear
+    # between them); the data are Poisson counts of its spectrum.  The truth must lie inside
+    # the pointwise 95 % bands at most depths: about 95 % is nominal, and neighbouring depths
+    # are correlated, so one spectrum's fraction scatters around it
+    nodes = 'species = ["Pt", "Ni", "Si"]\ncount = 7\nstep_sd = 1.0'
+    path = _run(tmp_path, nodes, fit="max_steps = 1200")
+    mu, _ = _truth(path)
+    _, obj = inversion.prepare(path, np.round(mu))
+    truth = np.concatenate([np.r_[SMOOTH_PT[0], np.diff(SMOOTH_PT)],
+                            np.r_[SMOOTH_NI[0], np.diff(SMOOTH_NI)], [1.0]])
+    counts = np.random.default_rng(2).poisson(obj.predict(truth, "all"))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", inversion.NotConvergedWarning)
-        result = inversion.invert(path, counts, tmp_path / "out.h5", seed=3, workers=1,
+        result = inversion.invert(path, counts, tmp_path / "out.h5", seed=3, workers=2,
                                   progress=False)
     depth = np.asarray(result.profile["depth"], dtype=float)
-    expected = truth(depth)
+    expected = obj.profile(truth, depth)
     inside = []
-    for j, sp in enumerate(("Pt", "Ni", "Si")):
+    for j, sp in enumerate(obj.spec.species):
         band = np.asarray(result.profile[sp])
         inside.append((band[0] <= expected[:, j] + 1e-9) & (expected[:, j] - 1e-9 <= band[4]))
+        # and the bands say something: a median 95 % width well below the fractions' range
+        # (measured 0.02 for Pt, 0.09 for Ni and Si with seed 3)
+        assert np.median(band[4] - band[0]) < 0.15, sp
     fraction = float(np.mean(inside))
+    # measured: 100 % of the points (seed 3, 1200 steps)
     print(f"truth inside the 95 % bands at {100 * fraction:.1f} % of depth points x species")
-    assert fraction >= 0.85
+    assert fraction >= 0.8
 
 
 def test_mixed_model_result_and_report(tmp_path):
