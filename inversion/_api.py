@@ -20,6 +20,7 @@ from forward import InputError
 from ._about import PROGRAM, version
 from .fit._bands import posterior_bands
 from .fit._derived import depth_nm
+from .fit._nodes import depth_resolution, describe_nodes
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .results._outputs import WriterLock, check_output, spectrum_file
@@ -82,6 +83,15 @@ def _check_worth_fitting(run, counts, spectrum):
                          "spectrum with counts", where=source)
 
 
+def _node_resolution(settings, run, model):
+    """The run's depth resolution, from which the free-form profile's node count defaults
+    (None for the layer model)."""
+    if settings.profile != "nodes":
+        return None
+    physics = getattr(run, "physics", None)
+    return depth_resolution(model, getattr(physics, "slice_fraction", 0.25))
+
+
 def prepare(run, spectrum, *, build_model=None, likelihood=True):
     """Build the objective for a run and a spectrum (no sampling, no file).
 
@@ -109,14 +119,16 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
                                            first_channel=settings.first_channel)
     model = build_model()
     columns = model.sample_columns()
-    spec = bind_fit(settings, columns, model.default_nuisance(), stopping_widths(run, columns))
+    spec = bind_fit(settings, columns, model.default_nuisance(), stopping_widths(run, columns),
+                    resolution=_node_resolution(settings, run, model))
     objective = Objective(spec, counts, build_model, model, measured=measured,
                           likelihood=likelihood)
     return run, objective
 
 
 def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force=False,
-           workers=1, progress=True, command=None, build_model=None, likelihood=True) -> Result:
+           workers=1, progress=True, command=None, build_model=None, likelihood=True,
+           announce=None) -> Result:
     """Sample the posterior of the run's free parameters given a measured spectrum.
 
     Parameters
@@ -144,6 +156,9 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
         The command line, stored in the file.
     build_model, likelihood
         See :func:`prepare` (for tests and studies).
+    announce : callable, optional
+        ``announce(line)`` with what the fit will do that the run file left to defaults (the
+        free-form profile's nodes), before sampling.
 
     Returns
     -------
@@ -155,6 +170,8 @@ def invert(run, spectrum, output, *, seed=0, max_steps=None, resume=False, force
     inputs = {"run file": run_path if isinstance(run_path, (str, Path)) else None,
               "spectrum file": spectrum_file(spectrum)}
     run, objective = prepare(run, spectrum, build_model=build_model, likelihood=likelihood)
+    if announce is not None and objective.spec.profile == "nodes":
+        announce(describe_nodes(objective.spec.nodes, objective.spec.species))
     max_steps = objective.spec.max_steps if max_steps is None else max_steps
     if int(max_steps) < 1:
         raise InputError(f"max steps must be at least 1, got {max_steps}", where="--max-steps")
@@ -197,6 +214,8 @@ def invert_reporting(run, spectrum, output, *, quiet=False, **kwargs) -> Result:
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", NotConvergedWarning)
+        if not quiet:
+            kwargs.setdefault("announce", print)
         result = invert(run, spectrum, output, progress=not quiet, **kwargs)
     loud_ones = [w for w in caught if issubclass(w.category, NotConvergedWarning)]
     for w in caught:
@@ -257,8 +276,10 @@ def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
         write_start(output, thetas[best], float(logps[best]), spec.names, searches=thetas,
                     search_log_posterior=logps,
                     method=f"{len(logps)} independent searches (differential evolution in "
-                           "prior bounds, Nelder-Mead polish); walkers in one group per "
-                           "search, drawn from its Laplace approximation")
+                           "prior bounds, Nelder-Mead polish"
+                           + (", L-BFGS-B polish" if spec.profile == "nodes" else "")
+                           + "); walkers in one group per search, drawn from its Laplace "
+                           "approximation")
 
     def on_step(step):
         if bar is not None:

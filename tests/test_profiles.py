@@ -100,24 +100,68 @@ def test_alr_round_trip():
 
 
 def test_node_profile_passes_through_its_nodes():
-    prof = NodeProfile(EDGES, 3, [2, 0], n_nodes=5, depth_1e15=400.0, below="hold")
+    nodes = np.linspace(0.0, 400.0, 5)
+    prof = NodeProfile(EDGES, 3, [2, 0], nodes, below="hold")
     params = np.array([0.5, -1.0, 0.3, 0.0, 2.0])  # start then four steps
     y_nodes = np.cumsum(params)
+    at = prof.fractions_at(params, nodes)
+    assert np.all(at[:, 1] == 0.0) and np.allclose(at.sum(axis=1), 1.0)
+    assert np.log(at[:, 2] / at[:, 0]) == pytest.approx(y_nodes)
+    # between nodes the fractions are linear in depth (the chord of the two nodes)
+    mid = prof.fractions_at(params, 0.5 * (nodes[1:] + nodes[:-1]))
+    assert mid == pytest.approx(0.5 * (at[1:] + at[:-1]))
     fr = prof.fractions(params)
     assert np.all(fr[:, 1] == 0.0) and np.allclose(fr.sum(axis=1), 1.0)
-    centres = 0.5 * (EDGES[1:] + EDGES[:-1])
-    for k, z in enumerate(prof.node_depth_1e15):
-        j = np.argmin(np.abs(centres - z))
-        if abs(centres[j] - z) < 1e-9:
-            assert np.log(fr[j, 2] / fr[j, 0]) == pytest.approx(y_nodes[k])
-    deep = centres > 400.0
+    deep = EDGES[:-1] >= 400.0
     assert np.allclose(np.log(fr[deep, 2] / fr[deep, 0]), y_nodes[-1])
 
 
+def test_node_slices_hold_the_profile_integral():
+    # each slice's row is the average of the point profile over its depth: compared with
+    # scipy.integrate.quad of the point profile (reference library)
+    from scipy.integrate import quad
+
+    nodes = np.array([0.0, 35.0, 120.0, 260.0, 305.0])
+    prof = NodeProfile(EDGES, 3, [0, 2, 1], nodes, below="vacuum")
+    params = np.random.default_rng(3).normal(0.0, 1.5, prof.n_parameters)
+    fr = prof.fractions(params)
+    for j in (0, 3, 7, 15, 30, EDGES.size - 2):
+        a, b = EDGES[j], EDGES[j + 1]
+        for c in range(3):
+            ref, _ = quad(lambda z: prof.fractions_at(params, z)[0, c], a, b,
+                          points=[z for z in nodes if a < z < b], epsabs=1e-12)
+            assert fr[j, c] * (b - a) == pytest.approx(ref, rel=1e-9, abs=1e-10)
+    # vacuum below: the table holds exactly the range's atoms
+    assert np.diff(EDGES) @ fr.sum(axis=1) == pytest.approx(305.0, rel=1e-12)
+
+
 def test_node_profile_vacuum_below():
-    prof = NodeProfile(EDGES, 2, [0, 1], n_nodes=4, depth_1e15=305.0, below="vacuum")
+    prof = NodeProfile(EDGES, 2, [0, 1], np.linspace(0.0, 305.0, 4), below="vacuum")
     fr = prof.fractions(np.zeros(4))
     assert np.diff(EDGES) @ fr.sum(axis=1) == pytest.approx(305.0)
+
+
+def test_node_range_inside_layers():
+    # a mixed model: nodes from 100 to 250 between a cap (species 0) and a substrate
+    # (species 2); outside the range the run file's layers, sharp
+    tops = np.array([0.0, 100.0, 250.0])
+    comps = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+    edges = np.unique(np.concatenate([EDGES, [100.0, 250.0]]))
+    prof = NodeProfile(edges, 3, [0, 2, 1], np.linspace(100.0, 250.0, 6), below="layers",
+                       layer_tops_1e15=tops, layer_compositions=comps)
+    params = np.random.default_rng(5).normal(0.0, 1.0, prof.n_parameters)
+    fr = prof.fractions(params)
+    centres = 0.5 * (edges[1:] + edges[:-1])
+    assert np.allclose(fr.sum(axis=1), 1.0)
+    assert np.all(fr[centres < 100.0] == comps[0])
+    assert np.all(fr[centres > 250.0] == comps[2])
+    assert np.all(fr[(centres > 100.0) & (centres < 250.0)].min(axis=0) > 0.0)
+    at = prof.fractions_at(params, [50.0, 100.0, 250.0, 400.0])
+    assert at[0] == pytest.approx(comps[0]) and at[3] == pytest.approx(comps[2])
+    assert np.log(at[1, 0] / at[1, 1]) == pytest.approx(params[0])
+    # the range holds exactly its areal density
+    inside = (centres > 100.0) & (centres < 250.0)
+    assert np.diff(edges)[inside] @ fr[inside].sum(axis=1) == pytest.approx(150.0, rel=1e-12)
 
 
 def test_stick_breaking_with_beta_priors_is_dirichlet():

@@ -77,15 +77,27 @@ def band_depth_1e15(objective) -> np.ndarray:
     (plus a quarter more over a substrate), and 81 points across each of the run file's
     interfaces, as wide as three of its mixing prior's 84 % widths or a fifth of the thinner
     neighbouring layer.  Node model: four points per node interval down to the deepest node
-    (a tenth more over a substrate).
+    (a tenth more over a substrate); with the nodes inside the run file's layers, four per node
+    interval over the range and nine over each stretch of layers above and below it.
     """
     spec = objective.spec
     model_end = float(objective.edges_1e15[-1])
     if spec.profile != "layers":
-        depth = float(spec.nodes["depth_1e15"])
-        end = depth * (1.1 if spec.nodes["below"] == "hold" else 1.0)
-        return np.linspace(0.0, min(end, max(model_end, depth)),
-                           4 * (int(spec.nodes["count"]) - 1) + 1)
+        nodes = spec.nodes
+        top, depth = float(nodes["top_1e15"]), float(nodes["depth_1e15"])
+        inside = np.linspace(top, depth, 4 * (int(nodes["count"]) - 1) + 1)
+        if nodes["below"] != "layers":
+            end = depth * (1.1 if nodes["below"] == "hold" else 1.0)
+            return np.linspace(0.0, min(end, max(model_end, depth)), inside.size)
+        # a mixed model: the run file's sharp layers above and below the node range, each
+        # boundary drawn as a step (a point just above it), down to a tenth below the films
+        films = float(nodes["total_depth_1e15"])
+        end = films * 1.1 if objective.substrate else films
+        tops = [z for z in np.cumsum(objective.base_thickness) if z < end]
+        parts = [inside, np.linspace(0.0, top, 9), np.linspace(depth, max(end, depth), 9),
+                 [np.nextafter(z, -np.inf) for z in tops + [top] if z > 0], tops]
+        return np.unique(np.clip(np.concatenate([np.atleast_1d(p) for p in parts]), 0.0,
+                                 max(end, depth)))
     t0 = np.asarray(objective.base_thickness, dtype=float)
     t_hi = t0.copy()
     w_hi = np.zeros(objective.n_interfaces)

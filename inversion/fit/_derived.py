@@ -115,7 +115,7 @@ def derived_values(objective, theta) -> np.ndarray:
     else:
         fractions = objective.node_fractions(theta)
         a, b = objective.edges_1e15[:-1], objective.edges_1e15[1:]
-        inside = np.clip(spec.nodes["depth_1e15"] - a, 0.0, b - a)
+        inside = np.clip(spec.nodes["total_depth_1e15"] - a, 0.0, b - a)
         per_species = inside @ fractions
     for e in _total_elements(objective):
         values.append(float(per_species[objective.species_element == e].sum()))

@@ -122,6 +122,10 @@ class _Profiles:
             self.refine[spec.index[Role.MIXING][1]] = True
         self.node_settings = dict(spec.nodes)
         self.n_species = len(spec.species)
+        # the run file's layers, around a node range inside them (mixed model)
+        thick = [L.areal_density_1e15 for L in spec.layers if not L.substrate]
+        self.layer_tops = np.concatenate([[0.0], np.cumsum(thick)])
+        self.layer_compositions = np.array([L.composition for L in spec.layers], dtype=float)
         self._nodes = None
 
     def nodes(self, model) -> NodeProfile:
@@ -129,7 +133,9 @@ class _Profiles:
                 or not np.array_equal(self._nodes.edges_1e15, model.grid.edges_1e15):
             n = self.node_settings
             self._nodes = NodeProfile(model.grid.edges_1e15, self.n_species, n["columns"],
-                                      n["count"], n["depth_1e15"], n["below"])
+                                      n["node_depth_1e15"], n["below"],
+                                      layer_tops_1e15=self.layer_tops,
+                                      layer_compositions=self.layer_compositions)
         return self._nodes
 
     def edges(self, model, draw) -> np.ndarray:

@@ -4,8 +4,9 @@ slice) out.
 * :class:`LayerStack`, layers with mixing at each interface, atoms conserved
   (:mod:`inversion.fit._stack`): its slices follow the sample, and their areal densities are
   the atoms they hold;
-* :class:`NodeProfile`, a free-form profile through K nodes in additive log-ratio space, on the
-  forward model's nominal grid.
+* :class:`NodeProfile`, a free-form profile through K nodes (additive log-ratios at the nodes,
+  fractions linear in depth between them), on the forward model's nominal grid, alone or over
+  a depth range inside the run file's layers.
 
 Every row is a slice AVERAGE of the profile, so expected counts are continuous in every
 parameter.  Rows are non-negative and sum to one, except where a sample without a substrate
@@ -138,7 +139,8 @@ def alr_to_fractions(logratios):
 
 
 class NodeProfile:
-    """A free-form profile through K nodes, linear in additive log-ratio space.
+    """A free-form profile through K nodes: log-ratios sampled at the nodes, atom fractions
+    linear in depth between them.
 
     Parameters
     ----------
@@ -148,69 +150,138 @@ class NodeProfile:
         Columns of the fraction table.
     columns : sequence of int
         The species (columns) the nodes describe; the last one is the log-ratio reference.
-        Other columns stay zero.
-    n_nodes : int
-        Number of nodes K, evenly spaced from the surface to ``depth_1e15``.
-    depth_1e15 : float
-        Depth of the deepest node (1e15 atoms/cm2).
-    below : {"hold", "vacuum"}
-        Below the deepest node: keep its composition (a substrate) or nothing (vacuum).
+        Other columns stay zero inside the node range.
+    node_depth_1e15 : array_like, shape (K,)
+        Depths of the nodes, increasing: the range is ``[node_depth[0], node_depth[-1]]``.
+    below : {"hold", "vacuum", "layers"}
+        Outside the range: below it keep the deepest node's composition (``"hold"``, a
+        substrate) or nothing (``"vacuum"``); or the run file's layers above and below it
+        (``"layers"``, a mixed model: ``layer_tops_1e15`` and ``layer_compositions`` needed).
+    layer_tops_1e15 : array_like, optional
+        Top of every run-file layer and the bottom of the last finite one (L + 1 values for L
+        finite layers; a substrate continues below the last).
+    layer_compositions : array_like (n_layers, n_species), optional
 
     Notes
     -----
-    Node k holds log-ratios ``y_k`` (length m - 1).  The parameters are the surface node's
+    Node k holds log-ratios ``y_k`` (length m - 1).  The parameters are the first node's
     log-ratios ``y_0`` and the steps ``d_k = y_k - y_{k-1}``, so the smoothness prior (a
-    Gaussian random walk) is a product of independent normal priors on the parameters.  The
-    log-ratios are interpolated linearly to the slice centres and mapped to fractions with
-    :func:`alr_to_fractions`.
+    Gaussian random walk) is a product of independent normal priors on the parameters.  Each
+    node's fractions ``f_k`` follow from :func:`alr_to_fractions`; between nodes the fractions
+    are linear in depth, so they stay on the simplex, and each slice holds the exact integral
+    of that profile over its depth: a species' atoms in the slice table equal its profile's
+    integral (to rounding), for any grid.
     """
 
-    def __init__(self, edges_1e15, n_species, columns, n_nodes, depth_1e15, below="hold"):
+    def __init__(self, edges_1e15, n_species, columns, node_depth_1e15, below="hold", *,
+                 layer_tops_1e15=None, layer_compositions=None):
         self.edges_1e15 = np.asarray(edges_1e15, dtype=float)
-        self.centres_1e15 = 0.5 * (self.edges_1e15[1:] + self.edges_1e15[:-1])
+        self.widths_1e15 = np.diff(self.edges_1e15)
         self.n_species = int(n_species)
         self.columns = np.asarray(columns, dtype=int)
-        self.n_nodes = int(n_nodes)
-        self.depth_1e15 = float(depth_1e15)
+        self.node_depth_1e15 = np.asarray(node_depth_1e15, dtype=float)
+        self.n_nodes = self.node_depth_1e15.size
+        if self.n_nodes < 2 or np.any(np.diff(self.node_depth_1e15) <= 0):
+            raise ValueError("node depths must be at least two, strictly increasing")
+        self.top_1e15 = float(self.node_depth_1e15[0])
+        self.depth_1e15 = float(self.node_depth_1e15[-1])
+        if below not in ("hold", "vacuum", "layers"):
+            raise ValueError(f"below must be 'hold', 'vacuum' or 'layers', got {below!r}")
         self.below = below
-        self.node_depth_1e15 = np.linspace(0.0, self.depth_1e15, self.n_nodes)
         self.n_ratios = self.columns.size - 1
+        self._gaps = np.diff(self.node_depth_1e15)
+        self._edge_at = self._locate(self.edges_1e15)
         a, b = self.edges_1e15[:-1], self.edges_1e15[1:]
-        self._coverage = np.clip((self.depth_1e15 - a) / (b - a), 0.0, 1.0)
+        overlap = np.clip(np.minimum(b, self.depth_1e15) - np.maximum(a, self.top_1e15), 0.0,
+                          None)
+        self._coverage = overlap / np.where(b > a, b - a, 1.0)
+        self._base = None
+        if below == "layers":
+            tops = np.asarray(layer_tops_1e15, dtype=float)
+            comps = np.asarray(layer_compositions, dtype=float)
+            self._tops, self._comps = tops, comps
+            self._base = self._layer_average(a, b)
 
+    # ----- the run file's layers outside the range (mixed model) -----
+    def _layer_bounds(self):
+        tops = self._tops
+        n = self._comps.shape[0]
+        lo = np.array([tops[i] if i < tops.size else tops[-1] for i in range(n)])
+        hi = np.array([tops[i + 1] if i + 1 < tops.size else np.inf for i in range(n)])
+        return lo, hi
+
+    def _layer_average(self, a, b):
+        """Area-weighted composition of the run file's layers in each slice [a, b]."""
+        lo, hi = self._layer_bounds()
+        out = np.zeros((a.size, self.n_species))
+        span = np.where(b > a, b - a, 1.0)
+        for i in range(self._comps.shape[0]):
+            overlap = np.clip(np.minimum(b, hi[i]) - np.maximum(a, lo[i]), 0.0, None)
+            out += (overlap / span)[:, None] * self._comps[i]
+        return out
+
+    def _layer_points(self, depth):
+        lo, hi = self._layer_bounds()
+        out = np.zeros((depth.size, self.n_species))
+        for i in range(self._comps.shape[0]):
+            on = (depth >= lo[i]) & (depth < hi[i])
+            out[on] = self._comps[i]
+        return out
+
+    # ----- nodes -----
     @property
     def n_parameters(self) -> int:
         return self.n_nodes * self.n_ratios
+
+    def _locate(self, depth):
+        """(interval, offset into it, depth below the range) of each depth."""
+        z = np.clip(depth, self.top_1e15, self.depth_1e15)
+        k = np.clip(np.searchsorted(self.node_depth_1e15, z, side="right") - 1, 0,
+                    self.n_nodes - 2)
+        return k, z - self.node_depth_1e15[k], np.maximum(depth - self.depth_1e15, 0.0)
 
     def node_logratios(self, params):
         """Parameters (start, then steps; species-major) to node log-ratios, shape (K, m-1)."""
         p = np.asarray(params, dtype=float).reshape(self.n_ratios, self.n_nodes)
         return np.cumsum(p, axis=1).T
 
+    def node_fractions(self, params):
+        """Fractions of the described species at each node, shape (K, m)."""
+        return alr_to_fractions(self.node_logratios(params))
+
     def fractions_at(self, params, depth_1e15):
-        """Atom fractions at depths (1e15 atoms/cm2), shape (n, n_species): the node
-        log-ratios interpolated linearly in depth (the point values, not slice averages)."""
-        depth = np.asarray(depth_1e15, dtype=float)
-        y_nodes = self.node_logratios(params)
-        y = np.empty((depth.size, self.n_ratios))
-        for j in range(self.n_ratios):
-            y[:, j] = np.interp(depth, self.node_depth_1e15, y_nodes[:, j])
+        """Atom fractions at depths (1e15 atoms/cm2), shape (n, n_species): linear in depth
+        between the nodes (point values)."""
+        depth = np.atleast_1d(np.asarray(depth_1e15, dtype=float))
+        f = self.node_fractions(params)
+        k, dz, _ = self._locate(depth)
+        t = (dz / self._gaps[k])[:, None]
         out = np.zeros((depth.size, self.n_species))
-        out[:, self.columns] = alr_to_fractions(y)
+        out[:, self.columns] = (1.0 - t) * f[k] + t * f[k + 1]
+        outside = (depth < self.top_1e15) | (depth > self.depth_1e15)
         if self.below == "vacuum":
             out[depth > self.depth_1e15] = 0.0
+        elif self.below == "layers":
+            out[outside] = self._layer_points(depth[outside])
         return out
 
     def fractions(self, params):
-        """Atom fractions on the grid, shape (n_slices, n_species)."""
-        y_nodes = self.node_logratios(params)
-        y = np.empty((self.centres_1e15.size, self.n_ratios))
-        for j in range(self.n_ratios):
-            y[:, j] = np.interp(self.centres_1e15, self.node_depth_1e15, y_nodes[:, j])
-        out = np.zeros((self.centres_1e15.size, self.n_species))
-        out[:, self.columns] = alr_to_fractions(y)
-        if self.below == "vacuum":
-            out *= self._coverage[:, None]
+        """Atom fractions on the grid, shape (n_slices, n_species): each slice's average of
+        the profile (exact: the integral of a piecewise-linear function)."""
+        f = self.node_fractions(params)
+        k, dz, extra = self._edge_at
+        # the profile's integral from the top of the range down to each edge
+        cum = np.concatenate([np.zeros((1, f.shape[1])),
+                              np.cumsum(0.5 * self._gaps[:, None] * (f[1:] + f[:-1]), axis=0)])
+        slope = (f[1:] - f[:-1]) / self._gaps[:, None]
+        integral = cum[k] + f[k] * dz[:, None] + 0.5 * slope[k] * (dz * dz)[:, None]
+        if self.below == "hold":
+            integral = integral + f[-1] * extra[:, None]
+        span = np.where(self.widths_1e15 > 0, self.widths_1e15, 1.0)[:, None]
+        out = np.zeros((self.widths_1e15.size, self.n_species))
+        out[:, self.columns] = np.maximum(np.diff(integral, axis=0) / span, 0.0)
+        if self.below == "layers":
+            out += (1.0 - self._coverage)[:, None] * self._base
         return out
 
 

@@ -193,8 +193,7 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
     if depth_nm is not None:
         profile["depth_nm"] = (depth_nm, attrs_of("profile/depth_nm"))
     if spec.profile == "nodes":
-        profile["node_depth"] = (np.linspace(0.0, float(spec.nodes["depth_1e15"]),
-                                             int(spec.nodes["count"])),
+        profile["node_depth"] = (np.asarray(spec.nodes["node_depth_1e15"], dtype=float),
                                  attrs_of("profile/node_depth"))
     spectrum = {"channel": np.arange(counts.size),
                 "counts": (counts, attrs_of("spectrum/counts")),

@@ -19,6 +19,8 @@ from ._convergence import (WALKER_GROUPS, SamplerStatus, autocorr_summary, group
                            is_converged)
 from ._start import (START_MAXITER, START_POPSIZE, find_start, find_starts, laplace_covariance,
                      prior_bounds, starts_disagree, walker_ball, walker_groups)
+from ._moves import SubspaceDEMove
+from ._polish import gradient_polish
 from ._workers import worker_log_posterior, worker_pool
 
 __all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt"]
@@ -28,11 +30,14 @@ def make_moves(kind: str):
     """emcee moves by name: ``"stretch"`` (affine-invariant stretch move, Goodman & Weare 2010,
     Comm. App. Math. Comp. Sci. 5, 65) or ``"differential"`` (differential evolution moves,
     ter Braak 2006, Stat. Comput. 16, 239, mixed 4:1 with the snooker update, ter Braak &
-    Vrugt 2008, Stat. Comput. 18, 435)."""
+    Vrugt 2008, Stat. Comput. 18, 435) or ``"subspace"`` (differential evolution in random
+    subspaces, :class:`inversion.sample._moves.SubspaceDEMove`, with the same snooker share)."""
     if kind == "stretch":
         return emcee.moves.StretchMove()
     if kind == "differential":
         return [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+    if kind == "subspace":
+        return [(SubspaceDEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
     raise ValueError(f"unknown moves {kind!r}")
 
 
@@ -104,6 +109,12 @@ class Sampler:
         thetas, logps = find_starts(self.objective, self.bounds, seed=self.seed, pool=pool,
                                     searches=WALKER_GROUPS, popsize=self.START_POPSIZE,
                                     maxiter=self.START_MAXITER)
+        if getattr(self.objective.spec, "profile", "layers") == "nodes":
+            # tens of node parameters: the searches stop short of the mode; a gradient
+            # polish puts each group's walkers where the posterior is (sample/_polish.py)
+            for g in range(thetas.shape[0]):
+                thetas[g], logps[g] = gradient_polish(self.objective, thetas[g], self.bounds,
+                                                      pool=pool)
         covs = [laplace_covariance(self.objective, th, self.bounds) for th in thetas]
         best = int(np.argmax(logps))
         warning = starts_disagree(thetas, logps, covs[best], self.objective.spec.names)
