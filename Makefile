@@ -27,7 +27,9 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/forward_speed.py --json
 	$(BIN)/python benchmarks/inversion_speed.py --json
 	$(BIN)/python benchmarks/inversion_speed.py --scenario nodes --json
+	$(BIN)/python benchmarks/inversion_speed.py --scenario nodes3 --json
 	$(BIN)/python benchmarks/series_speed.py --json
+	$(BIN)/python benchmarks/plan_speed.py --json
 	$(BIN)/python benchmarks/coverage.py --json
 
 clean:

@@ -7,6 +7,9 @@ Scenarios (invented samples, spectra simulated by the forward model with Poisson
   fluence, gain, offset, resolution and the Ge stopping scale (10 parameters).
 * ``nodes``: the same beam on a Ni film (250e15) that has mixed into Si (mixing width 60e15);
   fitted with the free-form profile, 20 nodes, species Ni and Si (20 parameters + fluence).
+* ``nodes3``: the same beam on a Pt cap (100e15) over a Ni film (200e15) on Si, both
+  interfaces mixed (widths 30e15 and 40e15); fitted with the free-form profile, 20 nodes to
+  450e15, species Pt, Ni and Si (40 parameters + fluence).
 
 Usage::
 
@@ -30,6 +33,8 @@ _sys.path[:] = [p for p in _sys.path
 
 import argparse
 import json
+import os
+import resource
 import platform
 import sys
 import tempfile
@@ -86,6 +91,7 @@ fixed = ["stopping.Ni", "stopping.Si"]
 windows = [[260, 760]]
 max_steps = {max_steps}
 moves = "{moves}"
+walkers = {walkers}
 [fit.free]
 "film.areal_density" = {{ uniform = [100, 600] }}
 "under.areal_density" = {{ uniform = [50, 500] }}
@@ -111,6 +117,7 @@ fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV"]
 windows = [[260, 760]]
 max_steps = {max_steps}
 moves = "{moves}"
+walkers = {walkers}
 [fit.nodes]
 count = 20
 depth_1e15 = 500.0
@@ -118,64 +125,114 @@ step_sd = 0.7
 species = ["Ni", "Si"]
 """
 
+NODES3 = COMMON + """\
+[[layer]]
+name = "cap"
+formula = "Pt"
+areal_density_1e15 = 100.0
+density_g_cm3 = 21.4
+[[layer]]
+name = "film"
+formula = "Ni"
+areal_density_1e15 = 200.0
+density_g_cm3 = 8.9
+[[layer]]
+name = "wafer"
+formula = "Si"
+substrate = true
+density_g_cm3 = 2.33
+[fit]
+profile = "nodes"
+fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]
+windows = [[260, 780]]
+max_steps = {max_steps}
+moves = "{moves}"
+walkers = {walkers}
+[fit.nodes]
+count = 20
+depth_1e15 = 450.0
+species = ["Pt", "Ni", "Si"]
+"""
+
+#: invented truths: areal densities and mixing widths of the layer stack that made the spectra
+TRUTH = {"layers": ([300.0, 200.0], [15.0, 25.0]), "nodes": ([250.0], [60.0]),
+         "nodes3": ([100.0, 200.0], [30.0, 40.0])}
+TEXT = {"layers": LAYERS, "nodes": NODES, "nodes3": NODES3}
+
 
 def simulate(run_path, scenario, seed):
+    """Poisson counts of the invented truth: the run's layers mixed at their interfaces (the
+    atom-conserving stack), on the grid that follows that sample."""
+    from inversion.fit._stack import refinement_points, stack_table
+
     run = forward.load_run(run_path)
     model = forward.ForwardModel(run, n_channels=1024)
-    fractions = model.layer_fractions()
-    if scenario == "nodes":
-        from inversion import LayerStack
-        stack = LayerStack(model.grid.edges_1e15, 2, 2, substrate=True)
-        fractions = stack.fractions([250.0], [60.0], np.eye(2))  # invented truth: mixed
-    else:
-        from inversion import LayerStack
-        stack = LayerStack(model.grid.edges_1e15, len(model.species), 3, substrate=True)
-        comps = np.zeros((3, len(model.species)))
-        for i, layer in enumerate(run.layers):
-            for sym, f in layer.fractions.items():
-                comps[i, model.species.index(sym)] = f
-        fractions = stack.fractions([300.0, 200.0], [15.0, 25.0], comps)  # invented truth
-    expected = np.maximum(model.expected_counts(fractions), 0.0)
+    comps = np.zeros((len(run.layers), len(model.species)))
+    for i, layer in enumerate(run.layers):
+        for sym, f in layer.fractions.items():
+            comps[i, model.species.index(sym)] = f
+    thickness, mixing = (np.asarray(v, dtype=float) for v in TRUTH[scenario])
+    edges = np.asarray(model.sample_edges(thickness), dtype=float)
+    extra = refinement_points(thickness, mixing, np.ones(mixing.size, dtype=bool))
+    edges = np.unique(np.concatenate([edges, np.clip(extra, 0.0, edges[-1])]))
+    widths, fractions, _ = stack_table(edges, thickness, mixing, comps, True)
+    expected = np.maximum(model.expected_counts(fractions, widths_1e15=widths), 0.0)
     return np.random.default_rng(seed).poisson(expected)
+
+
+def _cpu_s() -> float:
+    """CPU seconds of this process and of its finished children (the worker processes)."""
+    own, kids = (resource.getrusage(w) for w in (resource.RUSAGE_SELF,
+                                                   resource.RUSAGE_CHILDREN))
+    return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
 
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--scenario", choices=("layers", "nodes"), default="layers")
+    ap.add_argument("--scenario", choices=tuple(TEXT), default="layers")
     ap.add_argument("--workers", type=int, default=1)
     ap.add_argument("--max-steps", type=int, default=20000)
-    ap.add_argument("--moves", choices=("stretch", "differential"), default="differential",
+    ap.add_argument("--moves", choices=("stretch", "differential", "subspace"),
+                    default="differential",
                     help="emcee moves (default: differential, the program's own default)")
+    ap.add_argument("--walkers", type=int, default=0,
+                    help="walkers (default 0: the program's own choice)")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args(argv)
 
     with tempfile.TemporaryDirectory() as tmp:
         run_path = Path(tmp) / "run.toml"
-        text = (LAYERS if args.scenario == "layers" else NODES).format(
-            max_steps=args.max_steps, moves=args.moves)
+        text = TEXT[args.scenario].format(max_steps=args.max_steps, moves=args.moves,
+                                          walkers=args.walkers)
         run_path.write_text(text)
         counts = simulate(run_path, args.scenario, args.seed)
         # compile (or load) the numba kernel before timing
         forward.ForwardModel(forward.load_run(run_path), n_channels=counts.size)
         t0 = time.perf_counter()
+        cpu0 = _cpu_s()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", NotConvergedWarning)
             res = invert(run_path, counts, Path(tmp) / "out.h5", seed=args.seed,
                          workers=args.workers, progress=False)
         wall = time.perf_counter() - t0
+        cpu = _cpu_s() - cpu0
     d = res.diagnostics
     tau = np.asarray(d["autocorr_time"], dtype=float)
     ess = np.asarray(d["ess"], dtype=float)
     out = {
         "scenario": args.scenario, "moves": args.moves, "workers": args.workers,
-        "wall_s": round(wall, 2), "converged": bool(d["converged"]),
+        "wall_s": round(wall, 2), "cpu_s": round(cpu, 1), "converged": bool(d["converged"]),
         "steps": int(d["steps"]), "walkers": int(d["walkers"]),
         "max_autocorr_steps": round(float(np.nanmax(tau)), 1),
         "min_ess": round(float(np.nanmin(ess)), 1),
         "ess_per_s": round(float(np.nanmin(ess)) / wall, 2),
+        "ess_per_cpu_s": round(float(np.nanmin(ess)) / cpu, 2),
         "mean_acceptance": round(float(d["mean_acceptance"]), 3),
         "n_free_parameters": len(res.names),
+        "rhat_max": round(float(d.get("rhat_max", float("nan"))), 4),
+        "load_average": [round(x, 2) for x in os.getloadavg()],
+        "date": time.strftime("%Y-%m-%d %H:%M"),
         "python": platform.python_version(),
     }
     if args.scenario == "layers":

@@ -265,40 +265,41 @@ def run_text(sample: Sample, *, physics: str = "", guess: dict | None = None,
 
 
 def _truth_theta(objective, sample: Sample) -> np.ndarray:
-    """The objective's parameter vector at the world's truth (nuisances nominal)."""
+    """The objective's parameter vector at the world's truth (nuisances at the run file's
+    values: fluence 1, the calibration and resolution as written, stopping and straggling
+    factors 1, slopes 0)."""
+    from inversion import Role
+
     truth = sample.quantities()
-    theta = []
     nu = objective.default_nuisance
+    theta = []
     for p in objective.spec.parameters:
-        kind = p.role[0]
         if p.name in truth:
             theta.append(truth[p.name])
-        elif kind == "nuisance":
-            theta.append(float(getattr(nu, p.role[1])))
-        elif kind == "stopping":
-            theta.append(float(nu.stopping_scale[p.role[1]]))
-        elif kind == "share":
-            layer = [L for L in sample.layers if p.name.startswith(L.name + ".share.")][0]
-            theta.append(_share_value(objective, layer, p))
+        elif p.role.is_nuisance:
+            value = np.atleast_1d(np.asarray(getattr(nu, p.role.field), dtype=float))
+            theta.append(float(value[p.target]) if value.size > 1 or p.role.per_element
+                         else float(value[0]))
+        elif p.role is Role.SHARE:
+            theta.append(_share_value(objective, sample.layers[p.target], p))
         else:
-            theta.append(float(p.prior.dist.median()))
+            raise ValueError(f"no truth for {p.name}")
     return np.array(theta, dtype=float)
 
 
 def _share_value(objective, layer, p):
-    # stick-breaking share of the first species of a two-species layer = its fraction
-    sym = p.name.split(".share.")[1]
+    """Stick-breaking share of a species in a layer whose true fractions are known."""
     species = objective.spec.species
-    sym_el = [s for s in layer.truth_fractions if sym.startswith(s)][0]
-    fr = layer.truth_fractions
-    order = [species[c] for c in objective.spec.share_species[
-        [i for i, L in enumerate(objective.spec.layers) if L.name == layer.name][0]]]
+    columns = objective.spec.share_species[p.target]
+    order = [species[c] for c in columns]
+    sym = p.name.split(".share.")[1]
+    element_of = {s: [k for k in layer.truth_fractions if s.startswith(k)][0] for s in order}
     rest = 1.0
     for s in order:
-        s_el = [k for k in fr if s.startswith(k)][0]
-        if s_el == sym_el:
-            return fr[s_el] / rest
-        rest -= fr[s_el]
+        f = layer.truth_fractions[element_of[s]]
+        if s == sym:
+            return f / rest
+        rest -= f
     raise ValueError(p.name)
 
 
@@ -315,12 +316,7 @@ def simulate_world(sample: Sample, folder: Path, *, n_channels: int = 1100,
     path.write_text(text)
     run = forward.load_run(path)
     _, obj = inversion.prepare(run, np.ones(n_channels))
-    theta = _truth_theta(obj, sample)
-    fractions, nuisance, _ = obj.unpack(theta)
-    model = obj.model
-    if getattr(model, "first_channel", 0):
-        raise RuntimeError("world model must cover every channel")
-    return np.maximum(np.asarray(model.expected_counts(fractions, nuisance)), 0.0)
+    return obj.predict(_truth_theta(obj, sample), "all")
 
 
 def discretization_deviance(sample: Sample, total_counts: float = 1.5e6,
@@ -334,10 +330,7 @@ def discretization_deviance(sample: Sample, total_counts: float = 1.5e6,
         text = run_text(sample, physics=f"slice_fraction = {frac}", guess=g)
         run = forward.parse_run(text, source=f"{sample.name}-grid.toml")
         _, obj = inversion.prepare(run, np.ones(n_channels))
-        theta = _truth_theta(obj, sample)
-        fr, nu, _ = obj.unpack(theta)
-        spectra.append((np.maximum(np.asarray(obj.model.expected_counts(fr, nu)), 0.0),
-                        obj.mask))
+        spectra.append((obj.predict(_truth_theta(obj, sample), "all"), obj.mask))
     (coarse, mask), (fine, _) = spectra
     scale = total_counts / fine.sum()
     d, f = coarse[mask] * scale, fine[mask] * scale

@@ -92,6 +92,8 @@ TABLE_FLOOR_KEV = 10.0
 FWHM_TO_SIGMA = 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
 #: Depth margin of a substrate's grid beyond the nominal detection limit (see module notes).
 _SUBSTRATE_DEPTH_MARGIN = 1.2
+#: A substrate's grid reaches at most this many times its nominal reach plus the films
+_MAX_REACH_FACTOR = 4.0
 #: Smallest resolution used to size slices when the detector FWHM is tiny, keV.
 _MIN_SIZING_FWHM_KEV = 1.0
 
@@ -709,6 +711,10 @@ class ForwardModel:
             thinner = float(np.sum(np.maximum(self._t0 - t, 0.0)))
             need = (total + self._reach0_1e15 - self._tops0[-1] + self._rho * thinner) \
                 * _SUBSTRATE_DEPTH_MARGIN / min(1.0, self._lowest_stopping_factor(nu))
+            # never more than a few times the nominal reach: a nuisance that lowers some
+            # stopping further than that (far outside any prior) would otherwise ask for
+            # billions of slices
+            need = min(need, _MAX_REACH_FACTOR * (self._reach0_1e15 + total))
             if edges[-1] < need:
                 w = self._last_substrate_width
                 extra = int(math.ceil((need - edges[-1]) / w))

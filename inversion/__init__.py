@@ -42,6 +42,8 @@ _EXPORTS = {
     "fisher_matrix": ".fit._information",
     "cramer_rao_sd": ".fit._information",
     "nominal_theta": ".fit._information",
+    # planning a measurement: expected error bars of candidate set-ups
+    "plan": ".planning._plan",
     # reports and figures
     "build_report": ".report._build",
     "read_report_data": ".report._data",

@@ -21,8 +21,9 @@ from forward import InputError
 from ._about import PROGRAM, version
 from .fit._bands import posterior_bands
 from .fit._derived import depth_nm
+from .fit._nodes import depth_resolution, describe_nodes
 from .fit._objective import ModelBuilder, Objective
-from .fit._spec import bind_fit, read_fit_settings
+from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .fit._window import film_floor_channel
 from ._inputs import (MAX_STEPS, PreflightWarning, check_seed, load_inputs, preflight_inputs,
                       replay_warnings)
@@ -30,10 +31,10 @@ from .results._outputs import WriterLock, check_output, spectrum_file
 from .results._result import Result, read_result
 from .results._backend import compact_result, discard_unstarted, expand_result
 from .results._store import now_text, set_attrs
-from .results._writer import (create_result, open_chain, open_for_resume, set_status,
-                              write_posterior, write_start)
-from .sample._convergence import burn_in_and_thin, diagnostics
-from .sample._flags import PosteriorFlagWarning, not_converged_text, posterior_flags
+from .results._writer import (create_result, open_chain, open_for_resume, read_starts,
+                              set_status, write_posterior, write_start)
+from .sample._convergence import burn_in_and_thin, diagnostics, not_converged_message
+from .sample._flags import PosteriorFlagWarning, posterior_flags
 from .sample._sampler import Sampler, stop_on_interrupt
 
 __all__ = ["invert", "invert_reporting", "read_result", "NotConvergedWarning", "prepare",
@@ -41,7 +42,9 @@ __all__ = ["invert", "invert_reporting", "read_result", "NotConvergedWarning", "
 
 
 class NotConvergedWarning(UserWarning):
-    """The chain is shorter than ``tau_multiple`` autocorrelation times for some parameter."""
+    """A loud warning: the chain is not converged (too short for ``tau_multiple``
+    autocorrelation times, or walker groups that disagree), it was interrupted, the start
+    searches disagree, or the data reject the model."""
 
 
 def _load(run, spectrum):
@@ -86,6 +89,15 @@ def _check_worth_fitting(run, counts, spectrum):
                          "spectrum with counts", where=source)
 
 
+def _node_resolution(settings, run, model):
+    """The run's depth resolution, from which the free-form profile's node count defaults
+    (None for the layer model)."""
+    if settings.profile != "nodes":
+        return None
+    physics = getattr(run, "physics", None)
+    return depth_resolution(model, getattr(physics, "slice_fraction", 0.25))
+
+
 def prepare(run, spectrum, *, build_model=None, likelihood=True):
     """Build the objective for a run and a spectrum (no sampling, no file).
 
@@ -116,7 +128,9 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
                                            depth_limit_1e15=settings.depth_limit_1e15,
                                            first_channel=first)
     model = build_model()
-    spec = bind_fit(settings, model.sample_columns(), model.default_nuisance())
+    columns = model.sample_columns()
+    spec = bind_fit(settings, columns, model.default_nuisance(), stopping_widths(run, columns),
+                    resolution=_node_resolution(settings, run, model))
     objective = Objective(spec, counts, build_model, model, measured=measured,
                           likelihood=likelihood)
     return run, objective
@@ -124,7 +138,7 @@ def prepare(run, spectrum, *, build_model=None, likelihood=True):
 
 def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, force=False,
            workers=1, progress=True, command=None, build_model=None, likelihood=True,
-           accept_calibration=False) -> Result:
+           accept_calibration=False, announce=None) -> Result:
     """Sample the posterior of the run's free parameters given a measured spectrum.
 
     Parameters
@@ -157,6 +171,9 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
     accept_calibration : bool
         Go on although the counts' leading signal is not where the calibration puts it (the
         pre-flight error ``calibration.edge``); recorded as a warning.
+    announce : callable, optional
+        ``announce(line)`` with what the fit will do that the run file left to defaults (the
+        free-form profile's nodes), before sampling.
 
     Returns
     -------
@@ -179,6 +196,8 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
     input_warnings = [str(w.message) for w in loaded.load_warnings]
     if build_model is None and likelihood:
         input_warnings = preflight_inputs(loaded, accept_calibration=accept_calibration)
+    if announce is not None and objective.spec.profile == "nodes":
+        announce(describe_nodes(objective.spec.nodes, objective.spec.species))
     steps_where = "--max-steps" if max_steps is not None else f"{run.source}: fit.max_steps"
     max_steps = objective.spec.max_steps if max_steps is None else max_steps
     if int(max_steps) < 1:
@@ -220,7 +239,9 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
             raise
         messages = _messages(status, objective.spec)
         converged_messages = len(messages)
-        finalise(output, objective, status, seed=seed, messages=messages)
+        # finalise appends the posterior's flags to messages and returns the loud verdicts
+        # (the model rejected by the predictive check)
+        rejected = finalise(output, objective, status, seed=seed, messages=messages)
         set_attrs(output, "diagnostics", input_warnings=input_warnings or ["none"])
         set_status(output, finished=now_text(),
                    status="interrupted" if status.interrupted else
@@ -231,7 +252,7 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
             warnings.warn(f"{output}: the finished result file could not be compacted "
                           f"({' '.join(str(exc).split())}); it is complete, only larger",
                           forward.InputWarning, stacklevel=2)
-    for m in messages[:converged_messages]:
+    for m in messages[:converged_messages] + rejected:
         warnings.warn(m, NotConvergedWarning, stacklevel=2)
     for m in messages[converged_messages:]:  # the posterior's flags (sample/_flags.py)
         warnings.warn(m, PosteriorFlagWarning, stacklevel=2)
@@ -249,6 +270,8 @@ def invert_reporting(run, spectrum, output, *, quiet=False, **kwargs) -> Result:
     from .report._tables import interval_table, loud
 
     caught = []
+    if not quiet:
+        kwargs.setdefault("announce", print)
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
@@ -316,12 +339,20 @@ def _sample(output, objective, backend, *, seed, max_steps, workers, progress):
 
     if progress and last[0] == 0:
         print(f"{PROGRAM}: searching for the start point ({objective.ndim} parameters; "
-              "differential evolution, then Nelder-Mead)", file=sys.stderr, flush=True)
+              "independent differential-evolution searches, each polished)", file=sys.stderr,
+              flush=True)
     else:
         start_bar()
 
-    def on_start(theta, logp):
-        write_start(output, theta, logp, spec.names)
+    def on_start(thetas, logps, warning):
+        best = int(np.argmax(logps))
+        write_start(output, thetas[best], float(logps[best]), spec.names, searches=thetas,
+                    search_log_posterior=logps,
+                    method=f"{len(logps)} independent searches (differential evolution in "
+                           "prior bounds, Nelder-Mead polish"
+                           + (", L-BFGS-B polish" if spec.profile == "nodes" else "")
+                           + "); walkers in one group per search, drawn from its Laplace "
+                           "approximation")
         start_bar()
 
     def on_step(step):
@@ -346,18 +377,39 @@ def _messages(status, spec) -> list:
         messages.append(f"interrupted after {status.steps} steps; the file is resumable: run the "
                         f"same command with --resume to continue")
     if not status.converged:
-        messages.append(not_converged_text(status, spec.tau_multiple, spec.check_every))
-    return messages
+        messages.append(not_converged_message(status, spec.tau_multiple, spec.names,
+                                              check_every=spec.check_every))
+    return messages + list(status.warnings)
 
 
-def finalise(output, objective, status, *, seed, messages):
-    """Posterior draws, derived quantities, bands, predictive spectra and diagnostics, written
-    into the result file's final groups."""
+def _rejection_message(check) -> str:
+    """The loud warning for a spectrum the model does not describe."""
+    where = ", ".join(f"channels {a}-{b} ({'more' if sign > 0 else 'fewer'} counts than the "
+                      "model)" for a, b, sign in check.ranges[:4])
+    return ("MODEL REJECTED: the data do not fit the model (posterior predictive p-value "
+            f"{check.p_value:.3g}" + (f"; residuals run systematically at {where}" if where
+                                       else "") + "). The intervals hold only if the model were "
+            "right: look at the residuals, the window and the physics options (straggling "
+            "law, stopping, non-Rutherford cross-sections) before trusting them")
+
+
+def finalise(output, objective, status, *, seed, messages) -> list:
+    """Posterior draws, derived quantities, bands, predictive spectra, the posterior
+    predictive check and diagnostics, written into the result file's final groups.
+
+    The posterior's flags (inversion/sample/_flags.py) are appended to ``messages``.
+
+    Returns
+    -------
+    list of str
+        Loud warnings found while finishing (the model rejected by the predictive check); they
+        are stored with ``messages`` in ``/diagnostics``.
+    """
     spec = objective.spec
     backend = open_chain(output)
     steps = int(backend.iteration)
     if steps == 0:
-        return
+        return []
     discard, thin = burn_in_and_thin(status.tau, steps)
     samples = backend.get_chain(discard=discard, thin=thin, flat=True)
     logp = backend.get_log_prob(discard=discard, thin=thin, flat=True)
@@ -370,15 +422,34 @@ def finalise(output, objective, status, *, seed, messages):
     derived = np.array([objective.derived(t) for t in samples])
     bands = posterior_bands(objective, samples, theta_map, n_draws=spec.band_draws,
                             seed=seed + 2)
+    found = []
+    diag = diagnostics(status, steps=steps, n_walkers=spec.n_walkers,
+                       tau_multiple=spec.tau_multiple, discard=discard, thin=thin,
+                       messages=messages)
+    check = bands.check
+    if check is not None:
+        if check.rejected:
+            found.append(_rejection_message(check))
+        diag.update(ppc_p_value=check.p_value, model_rejected=check.rejected,
+                    ppc_alpha=check.alpha, ppc_z_limit=check.z_limit,
+                    ppc_deviance=np.column_stack([check.deviance_observed,
+                                                  check.deviance_replicated]),
+                    ppc_blocks=np.column_stack([check.block_first, check.block_last,
+                                                check.block_z]),
+                    ppc_ranges=np.array(check.ranges, dtype=np.int64).reshape(-1, 3))
+    starts = read_starts(output)
+    if starts is not None:
+        diag["starts"] = np.column_stack([starts[0], starts[1]])
+    if found:
+        diag["warnings"] = [m for m in diag["warnings"] if m != "none"] + found
     write_posterior(
         output, spec=spec, samples=samples, log_posterior=logp, discard=discard, thin=thin,
         derived_names=derived_names, derived_units=derived_units, derived_notes=notes,
-        derived=derived, depth_1e15=0.5 * (objective.edges_1e15[1:] + objective.edges_1e15[:-1]),
-        depth_nm=depth_nm(objective), bands=bands, counts=objective.counts,
+        derived=derived, depth_1e15=bands.depth_1e15,
+        depth_nm=depth_nm(objective, bands.depth_1e15), bands=bands, counts=objective.counts,
         window=objective.mask, run_calibration_keV=_run_calibration(objective),
-        diagnostics=diagnostics(status, steps=steps, n_walkers=spec.n_walkers,
-                                tau_multiple=spec.tau_multiple, discard=discard, thin=thin,
-                                messages=messages))
+        diagnostics=diag)
+    return found
 
 
 def _run_calibration(objective):

@@ -19,11 +19,11 @@ import numpy as np
 import forward
 from forward import InputError
 
+from .sample._convergence import MAX_STEPS  # re-exported: ten million steps, weeks of sampling
+
 __all__ = ["Inputs", "load_inputs", "preflight_inputs", "check_seed",
            "replay_warnings", "as_spectrum", "SEED_MAX", "MAX_STEPS", "PreflightWarning"]
 
-#: The longest chain an inversion may ask for (ten million steps: weeks of sampling).
-MAX_STEPS = 10_000_000
 
 #: The largest seed: the start search, the walker ball and the band draws use ``seed``,
 #: ``seed + 1`` and ``seed + 2``, series members ``seed + 1000 k``, and numpy's generators

@@ -73,6 +73,8 @@ class ToyNuisance:
     quadratic_keV: float = 0.0
     fwhm_keV: float = 20.0
     stopping_scale: np.ndarray = dataclasses.field(default_factory=lambda: np.ones(2))
+    straggling_scale: float = 1.0
+    stopping_slope: np.ndarray = dataclasses.field(default_factory=lambda: np.zeros(2))
 
 
 class ToyModel:
@@ -125,13 +127,18 @@ class ToyModel:
             top = bottom
         return out
 
-    def expected_counts(self, fractions, nuisance=None, *, per_species=False):
+    def sample_edges(self, areal_density_1e15, nuisance=None):
+        """The toy's slices do not follow the sample: always its fixed grid."""
+        return self.grid.edges_1e15
+
+    def expected_counts(self, fractions, nuisance=None, *, widths_1e15=None, per_species=False):
         self.calls += 1
         nu = nuisance or self.default_nuisance()
         scale = np.asarray(nu.stopping_scale)[self.species_element]
-        z = self.grid.centres_1e15
+        widths = self.grid.widths_1e15 if widths_1e15 is None else np.asarray(widths_1e15)
+        z = np.cumsum(widths) - 0.5 * widths
         energy = self.surface_keV[None, :] - self.loss_keV_per_1e15 * scale[None, :] * z[:, None]
-        amount = fractions * self.grid.widths_1e15[:, None] * self.yield_per_1e15[None, :]
+        amount = fractions * widths[:, None] * self.yield_per_1e15[None, :]
         edges = nu.offset_keV + nu.gain_keV * (np.arange(self.n_channels + 1) - 0.5)
         sigma = nu.fwhm_keV / 2.3548200450309493
         cdf = ndtr((edges[None, None, :] - energy[:, :, None]) / sigma)

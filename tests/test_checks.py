@@ -6,8 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from inversion._predictive import poisson_deviance, predictive_check
-from inversion._rhat import RHAT_LIMIT, rank_normalised_split_rhat, split_rhat
+from inversion.fit._predictive import poisson_deviance, predictive_check
+from inversion.sample._rhat import RHAT_LIMIT, rank_normalised_split_rhat, split_rhat
 
 __all__: list[str] = []
 
@@ -53,7 +53,7 @@ def test_folded_rhat_catches_chains_that_differ_only_in_spread():
     rng = np.random.default_rng(4)
     x = rng.standard_normal((4000, 8))
     x[:, :4] *= 2.0
-    from inversion._rhat import _normal_scores, _split
+    from inversion.sample._rhat import _normal_scores, _split
     bulk = split_rhat(_normal_scores(_split(x)))
     assert bulk < RHAT_LIMIT
     assert rank_normalised_split_rhat(x) > 1.05
@@ -121,3 +121,20 @@ def test_blocks_never_straddle_a_gap_in_the_window():
     check = predictive_check(y, _draws(mu[channels], rng), channels, block_channels=8)
     for first, last in zip(check.block_first, check.block_last):
         assert (last < 150) or (first >= 200)
+
+
+def test_between_group_rhat_passes_mixed_groups_and_names_the_stuck_parameter():
+    from inversion.sample._rhat import between_group_rhat
+
+    rng = np.random.default_rng(9)
+    # an AR(1) chain per walker (autocorrelation time about 19 steps), two groups of 20
+    steps, walkers = 3000, 40
+    x = np.zeros((steps, walkers, 2))
+    for t in range(1, steps):
+        x[t] = 0.9 * x[t - 1] + np.sqrt(1 - 0.81) * rng.standard_normal((walkers, 2))
+    assert np.all(between_group_rhat(x[300:], 2) < RHAT_LIMIT)
+    # the second group found another mode, 0.3 sd away, in the first parameter only
+    y = x.copy()
+    y[:, 20:, 0] += 0.3
+    rhat = between_group_rhat(y[300:], 2)
+    assert rhat[0] > RHAT_LIMIT and rhat[1] < RHAT_LIMIT

@@ -14,8 +14,8 @@ import pytest
 from inversion.fit._priors import make_prior
 from inversion.fit._roles import Role
 from inversion.fit._spec import Parameter
-from inversion.sample._flags import (NUISANCE_SD, PILE_FRACTION, not_converged_text,
-                                     posterior_flags)
+from inversion.sample._convergence import not_converged_message
+from inversion.sample._flags import NUISANCE_SD, PILE_FRACTION, posterior_flags
 
 __all__: list[str] = []
 
@@ -111,15 +111,15 @@ def test_a_nuisance_far_from_its_prior_is_named(median, flagged):
     assert found_z == pytest.approx(z, abs=0.1)
 
 
-def test_not_converged_text_gives_at_least_the_steps_and_a_larger_cap():
-    status = SimpleNamespace(steps=5, tau=np.array([0.46, 0.2]))
-    text = not_converged_text(status, 50.0, 200)
+def test_not_converged_message_gives_at_least_the_steps_and_a_larger_cap():
+    status = SimpleNamespace(steps=5, tau=np.array([0.46, 0.2]), rhat=None)
+    text = not_converged_message(status, 50.0, check_every=200)
     assert "NOT CONVERGED: 5 steps" in text and "at least 23 steps" in text
     assert "lower bound" in text
     assert int(re.search(r"--max-steps (\d+)", text).group(1)) == 200  # the check grid
-    status = SimpleNamespace(steps=2000, tau=np.array([209.2, 50.0]))
-    text = not_converged_text(status, 50.0, 200)
+    status = SimpleNamespace(steps=2000, tau=np.array([209.2, 50.0]), rhat=None)
+    text = not_converged_message(status, 50.0, check_every=200)
     assert "at least 10460 steps" in text
     assert int(re.search(r"--max-steps (\d+)", text).group(1)) == 10600
-    status = SimpleNamespace(steps=200, tau=np.array([np.nan]))
-    assert "--max-steps 400" in not_converged_text(status, 50.0, 200)
+    status = SimpleNamespace(steps=200, tau=np.array([np.nan]), rhat=None)
+    assert "--max-steps 400" in not_converged_message(status, 50.0, check_every=200)

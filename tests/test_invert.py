@@ -52,8 +52,12 @@ def test_defaults_are_stated_in_the_spec(toy):
     assert lines[0] == "film.areal_density [1e15 atoms/cm2]: uniform(30, 900) (default)"
     assert "film.mixing [1e15 atoms/cm2]: halfnormal(75) (default)" in lines
     assert "fluence_scale [1]: normal(1, 0.05) (default)" in lines
-    assert "stopping.Ge [1]: normal(1, 0.03) (default)" in lines
-    assert spec.n_walkers == 32  # max(32, 4 x 8 parameters)
+    # stopping priors from the measured spread against NIST ASTAR (forward.stopping_uncertainty)
+    scale_sd, slope_sd = forward.stopping_uncertainty("Ge")
+    assert f"stopping.Ge [1]: normal(1, {scale_sd:.4g}) (default)" in lines
+    assert f"slope.Ge [1]: normal(0, {slope_sd:.4g}) (default)" in lines
+    assert "straggling_scale [1]: lognormal(1, 0.3) (default)" in lines
+    assert spec.n_walkers == 44  # max(32, 4 x 11 parameters)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -146,7 +150,7 @@ formula = "Si"
 substrate = true
 density_g_cm3 = 2.33
 [fit]
-fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "fluence_scale"]
+fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "fluence_scale", "straggling_scale"]
 walkers = 8
 tau_multiple = 30
 max_steps = {steps}

@@ -12,7 +12,7 @@ from scipy import stats
 from inversion import Role
 
 FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
-                "film.mixing": {"halfnormal": 30}}, "fixed": ["stopping"]}
+                "film.mixing": {"halfnormal": 30}}, "fixed": ["stopping", "straggling_scale"]}
 
 
 def test_log_likelihood_equals_scipy_poisson_sum(toy):
@@ -94,13 +94,13 @@ def test_negative_background_is_outside_the_physical_limits(toy):
         "background.low": {"normal": [0.0, 1.0]}}))
     obj = toy.objective(fit)
     theta = np.array([320.0, 12.0, 1.0, 8.0, 40.0, 20.0, -0.5, 1.0])
-    assert obj.unpack(theta) is None
+    assert obj.unpack(theta) is None and obj.slice_table(theta) is None
     assert obj.log_posterior(theta) == -np.inf
 
 
 def test_node_profile_parameters_and_random_walk_prior(toy):
     fit = {"profile": "nodes", "nodes": {"count": 6, "depth_1e15": 480.0, "step_sd": 0.4},
-           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV"]}
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]}
     obj = toy.objective(fit)
     assert obj.names[:6] == ["nodes.Ge.logratio0"] + [f"nodes.Ge.step{k}" for k in range(1, 6)]
     assert obj.names[6:] == ["fluence_scale"]
@@ -110,10 +110,17 @@ def test_node_profile_parameters_and_random_walk_prior(toy):
     ref = stats.norm(0, 3.0).logpdf(0.4) + stats.norm(0, 0.4).logpdf(theta[1:6]).sum() \
         + stats.norm(1.0, 0.05).logpdf(1.0)
     assert obj.log_prior(theta) == pytest.approx(ref, rel=1e-12)
-    fr = obj.profile(theta)
+    fr = obj.node_fractions(theta)
     assert np.allclose(fr.sum(axis=1), 1.0)  # a substrate: the deepest node holds below
     y = np.cumsum(theta[:6])
-    assert np.log(fr[0, 0] / fr[0, 1]) == pytest.approx(np.interp(20.0, np.linspace(0, 480, 6), y))
+    # the profile passes through the nodes' log-ratios; between them the fractions are linear
+    # in depth, so a slice inside one node interval holds the fractions at its centre
+    nodes = np.linspace(0, 480, 6)
+    at = obj.profile(theta, nodes)
+    assert np.log(at[:, 0] / at[:, 1]) == pytest.approx(y)
+    centre = 0.5 * (obj.edges_1e15[0] + obj.edges_1e15[1])
+    assert obj.edges_1e15[1] <= nodes[1]
+    assert fr[0] == pytest.approx(obj.profile(theta, [centre])[0], rel=1e-12)
     totals = obj.derived(theta)  # total.Ge, total.Si above the deepest node
     assert totals.sum() == pytest.approx(480.0)
     assert np.isfinite(obj.log_posterior(theta))
@@ -127,24 +134,31 @@ def test_roles_carry_positions_and_targets(toy):
     spec = obj.spec
     assert [p.role for p in spec.parameters] == [
         Role.AREAL_DENSITY, Role.MIXING, Role.SHARE, Role.FLUENCE_SCALE, Role.OFFSET,
-        Role.FWHM, Role.STOPPING, Role.STOPPING, Role.BACKGROUND, Role.BACKGROUND]
+        Role.FWHM, Role.STOPPING, Role.STOPPING, Role.STRAGGLING, Role.SLOPE, Role.SLOPE,
+        Role.BACKGROUND, Role.BACKGROUND]
     positions, targets = spec.index[Role.STOPPING]
     assert positions.tolist() == [6, 7] and targets.tolist() == [0, 1]  # Ge, Si
+    assert spec.index[Role.SLOPE][0].tolist() == [9, 10]
     assert spec.index[Role.BACKGROUND][1].tolist() == [0, 1]  # low end, high end
     assert Role.GAIN not in spec.index
-    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 0.5, 1.5])
-    fractions, nuisance, background = obj.unpack(theta)
+    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 1.1, 0.01, -0.02, 0.5,
+                      1.5])
+    draw = obj.unpack(theta)
+    nuisance = draw.nuisance
     assert nuisance.stopping_scale.tolist() == [1.02, 0.97]
+    assert nuisance.straggling_scale == 1.1 and nuisance.stopping_slope.tolist() == [0.01, -0.02]
     assert nuisance.offset_keV == 40.0 and nuisance.gain_keV == 8.0  # gain stays fixed
-    assert background[0] == 0.5 and background[-1] == 1.5
-    # physical limits, role by role: a share must lie inside (0, 1), a scale above 0
+    assert draw.background.tolist() == [0.5, 1.5]
+    # physical limits, role by role: a share must lie inside (0, 1), a scale above 0; a slope
+    # may take any sign
     for i, bad in ((0, -1.0), (1, -0.1), (2, 1.0), (2, 0.0), (3, 0.0), (5, -2.0), (7, 0.0),
-                   (8, -0.5)):
+                   (7, 0.1), (7, 6.0), (8, 0.0), (9, 0.6), (10, -0.5), (11, -0.5)):
         outside = theta.copy()
         outside[i] = bad
         assert obj.unpack(outside) is None, (obj.names[i], bad)
     negative_offset = theta.copy()
     negative_offset[4] = -3.0  # an offset may be negative
+    negative_offset[9] = -0.3  # and a slope (inside its limits, -0.5 to 0.5)
     assert obj.unpack(negative_offset) is not None
 
 

@@ -16,7 +16,7 @@ from forward._stopping import CARBON_PHASES, helium_electronic_stopping, nuclear
 from forward._straggling import (STRAGGLING_LAWS, bohr_variance, lindhard_scharff_chi,
                                  straggling_rate)
 
-from test_model import make_run
+from forward_runs import make_run
 
 FILM_ON_CARBON = """
 [[layer]]

@@ -13,7 +13,7 @@ import pytest
 import forward
 from forward._kernel import _sloped_tables
 
-from test_model import FILM_ON_SUBSTRATE, make_run
+from forward_runs import FILM_ON_SUBSTRATE, make_run
 
 
 def test_straggling_variances_are_proportional_to_the_straggling_scale():

@@ -47,45 +47,49 @@ def test_width_is_the_diffusion_length_sqrt_2Dt():
 
 def test_layer_stack_rows_on_simplex_and_areal_density_conserved():
     comps = np.array([[0.5, 0.5, 0.0], [0.0, 0.2, 0.8], [0.0, 0.0, 1.0]])
-    stack = LayerStack(EDGES, 3, 3, substrate=True)
+    stack = LayerStack(3, substrate=True)
     t = np.array([150.0, 220.0])
-    fr = stack.fractions(t, [12.0, 30.0], comps)
+    widths, fr = stack.table(EDGES, t, [12.0, 30.0], comps)
     assert np.all(fr >= 0) and np.allclose(fr.sum(axis=1), 1.0, atol=1e-12)
     # mixing moves atoms, never makes or loses them: species 0 lives only in layer 1
     # (common practice: the error-function step conserves the integral of the profile)
-    widths = np.diff(EDGES)
     assert widths @ fr[:, 0] == pytest.approx(0.5 * 150.0, rel=1e-9)
     assert widths @ fr[:, 1] == pytest.approx(0.5 * 150.0 + 0.2 * 220.0, rel=1e-9)
 
 
 def test_no_substrate_leaves_vacuum_below():
     comps = np.array([[1.0, 0.0], [0.3, 0.7]])
-    stack = LayerStack(EDGES, 2, 2, substrate=False)
-    fr = stack.fractions([100.0, 203.0], [5.0, 0.0], comps)
+    stack = LayerStack(2, substrate=False)
+    widths, fr = stack.table(EDGES, [100.0, 203.0], [5.0, 0.0], comps)
     sums = fr.sum(axis=1)
-    i = np.searchsorted(EDGES, 303.0) - 1
-    assert np.allclose(sums[:i], 1.0) and sums[i] == pytest.approx(0.3)
-    assert np.all(fr[i + 1:] == 0.0)
-    assert np.diff(EDGES) @ sums == pytest.approx(303.0, rel=1e-12)
+    held = widths > 0
+    assert np.allclose(sums[held], 1.0) and np.all(fr[~held] == 0.0)
+    assert widths.sum() == pytest.approx(303.0, rel=1e-12)  # every atom, and only atoms
+    assert widths @ fr[:, 1] == pytest.approx(0.7 * 203.0, rel=1e-12)
+    assert np.all(widths[EDGES[:-1] >= 303.0] == 0.0)
 
 
 def test_thin_marker_spreads_as_a_gaussian_of_its_areal_density():
-    # a 2e15 layer with mixing 40 above and below: its weight tends to
-    # t * phi((z - zc) / w) / w (common practice: a thin source diffusing)
+    # a 2e15 layer with mixing 40 above and below: its profile is its box convolved with
+    # the Gaussian, close to t * phi((z - zc) / w) / w (common practice: a thin source
+    # diffusing)
     fine = np.linspace(0.0, 1000.0, 2001)
-    stack = LayerStack(fine, 2, 3, substrate=True)
+    stack = LayerStack(3, substrate=True)
     comps = np.array([[1.0, 0.0], [0.0, 1.0], [1.0, 0.0]])
-    fr = stack.fractions([400.0, 2.0], [40.0, 40.0], comps)
+    widths, fr = stack.table(fine, [400.0, 2.0], [40.0, 40.0], comps)
+    assert np.allclose(widths, np.diff(fine), rtol=1e-9)  # equal widths: no depth distortion
     centres = 0.5 * (fine[1:] + fine[:-1])
     gauss = 2.0 * stats.norm.pdf(centres, loc=401.0, scale=40.0)
     assert np.max(np.abs(fr[:, 1] - gauss)) < 1e-3 * gauss.max() * 10
 
 
 def test_overlapping_interfaces_stay_on_the_simplex():
-    stack = LayerStack(EDGES, 2, 3, substrate=True)
+    stack = LayerStack(3, substrate=True)
     comps = np.array([[1.0, 0.0], [0.0, 1.0], [1.0, 0.0]])
-    fr = stack.fractions([300.0, 10.0], [200.0, 1.0], comps)
+    edges = np.linspace(0.0, 310.0 + 8 * 200.0, 801)  # the grid holds 8 widths of tail
+    widths, fr = stack.table(edges, [300.0, 10.0], [200.0, 1.0], comps)
     assert np.all(fr >= 0) and np.allclose(fr.sum(axis=1), 1.0)
+    assert widths @ fr[:, 1] == pytest.approx(10.0, rel=1e-9)  # nothing clipped
 
 
 def test_alr_round_trip():
@@ -96,24 +100,68 @@ def test_alr_round_trip():
 
 
 def test_node_profile_passes_through_its_nodes():
-    prof = NodeProfile(EDGES, 3, [2, 0], n_nodes=5, depth_1e15=400.0, below="hold")
+    nodes = np.linspace(0.0, 400.0, 5)
+    prof = NodeProfile(EDGES, 3, [2, 0], nodes, below="hold")
     params = np.array([0.5, -1.0, 0.3, 0.0, 2.0])  # start then four steps
     y_nodes = np.cumsum(params)
+    at = prof.fractions_at(params, nodes)
+    assert np.all(at[:, 1] == 0.0) and np.allclose(at.sum(axis=1), 1.0)
+    assert np.log(at[:, 2] / at[:, 0]) == pytest.approx(y_nodes)
+    # between nodes the fractions are linear in depth (the chord of the two nodes)
+    mid = prof.fractions_at(params, 0.5 * (nodes[1:] + nodes[:-1]))
+    assert mid == pytest.approx(0.5 * (at[1:] + at[:-1]))
     fr = prof.fractions(params)
     assert np.all(fr[:, 1] == 0.0) and np.allclose(fr.sum(axis=1), 1.0)
-    centres = 0.5 * (EDGES[1:] + EDGES[:-1])
-    for k, z in enumerate(prof.node_depth_1e15):
-        j = np.argmin(np.abs(centres - z))
-        if abs(centres[j] - z) < 1e-9:
-            assert np.log(fr[j, 2] / fr[j, 0]) == pytest.approx(y_nodes[k])
-    deep = centres > 400.0
+    deep = EDGES[:-1] >= 400.0
     assert np.allclose(np.log(fr[deep, 2] / fr[deep, 0]), y_nodes[-1])
 
 
+def test_node_slices_hold_the_profile_integral():
+    # each slice's row is the average of the point profile over its depth: compared with
+    # scipy.integrate.quad of the point profile (reference library)
+    from scipy.integrate import quad
+
+    nodes = np.array([0.0, 35.0, 120.0, 260.0, 305.0])
+    prof = NodeProfile(EDGES, 3, [0, 2, 1], nodes, below="vacuum")
+    params = np.random.default_rng(3).normal(0.0, 1.5, prof.n_parameters)
+    fr = prof.fractions(params)
+    for j in (0, 3, 7, 15, 30, EDGES.size - 2):
+        a, b = EDGES[j], EDGES[j + 1]
+        for c in range(3):
+            ref, _ = quad(lambda z: prof.fractions_at(params, z)[0, c], a, b,
+                          points=[z for z in nodes if a < z < b], epsabs=1e-12)
+            assert fr[j, c] * (b - a) == pytest.approx(ref, rel=1e-9, abs=1e-10)
+    # vacuum below: the table holds exactly the range's atoms
+    assert np.diff(EDGES) @ fr.sum(axis=1) == pytest.approx(305.0, rel=1e-12)
+
+
 def test_node_profile_vacuum_below():
-    prof = NodeProfile(EDGES, 2, [0, 1], n_nodes=4, depth_1e15=305.0, below="vacuum")
+    prof = NodeProfile(EDGES, 2, [0, 1], np.linspace(0.0, 305.0, 4), below="vacuum")
     fr = prof.fractions(np.zeros(4))
     assert np.diff(EDGES) @ fr.sum(axis=1) == pytest.approx(305.0)
+
+
+def test_node_range_inside_layers():
+    # a mixed model: nodes from 100 to 250 between a cap (species 0) and a substrate
+    # (species 2); outside the range the run file's layers, sharp
+    tops = np.array([0.0, 100.0, 250.0])
+    comps = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+    edges = np.unique(np.concatenate([EDGES, [100.0, 250.0]]))
+    prof = NodeProfile(edges, 3, [0, 2, 1], np.linspace(100.0, 250.0, 6), below="layers",
+                       layer_tops_1e15=tops, layer_compositions=comps)
+    params = np.random.default_rng(5).normal(0.0, 1.0, prof.n_parameters)
+    fr = prof.fractions(params)
+    centres = 0.5 * (edges[1:] + edges[:-1])
+    assert np.allclose(fr.sum(axis=1), 1.0)
+    assert np.all(fr[centres < 100.0] == comps[0])
+    assert np.all(fr[centres > 250.0] == comps[2])
+    assert np.all(fr[(centres > 100.0) & (centres < 250.0)].min(axis=0) > 0.0)
+    at = prof.fractions_at(params, [50.0, 100.0, 250.0, 400.0])
+    assert at[0] == pytest.approx(comps[0]) and at[3] == pytest.approx(comps[2])
+    assert np.log(at[1, 0] / at[1, 1]) == pytest.approx(params[0])
+    # the range holds exactly its areal density
+    inside = (centres > 100.0) & (centres < 250.0)
+    assert np.diff(edges)[inside] @ fr[inside].sum(axis=1) == pytest.approx(150.0, rel=1e-12)
 
 
 def test_stick_breaking_with_beta_priors_is_dirichlet():

@@ -233,7 +233,7 @@ def test_unknown_keyword_is_rejected(converged, function):
 
 def test_bands_are_labelled_and_overplotting_reuses_the_figure(converged):
     data = read_report_data(converged[0])
-    fig = _figures.plot_profile(data)
+    fig = _figures.plot_profile(data, layout="overlay")
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert {"68 % credible band", "95 % credible band", "posterior median"} <= set(labels)
     top = fig.axes[0].child_axes  # the secondary depth axis in nm

@@ -10,7 +10,7 @@ import pytest
 
 import forward
 
-from test_model import FILM_ON_SUBSTRATE, make_run
+from forward_runs import FILM_ON_SUBSTRATE, make_run
 
 HEAVY_FILM_ON_SI = """
 [[layer]]
@@ -249,3 +249,14 @@ def test_substrate_reaches_deep_enough_for_other_films_and_lower_stopping(t):
     g = model.sample_grid(t)
     rec = model.edge_table(model.layer_fractions(g), nu, widths_1e15=g.widths_1e15)
     assert np.isfinite(rec[-1, :, 0]).any()
+
+
+def test_substrate_extension_is_bounded_for_absurd_nuisances():
+    # a stopping lowered a million-fold is far outside any prior; the grid still stays a
+    # few times its nominal reach instead of asking for billions of slices
+    model = _heavy_film_model()
+    nu = model.default_nuisance()
+    nu.stopping_scale = nu.stopping_scale * 1e-6
+    grid = model.sample_grid(model._t0, nu)
+    assert grid.edges_1e15[-1] <= 4.0 * (model.grid.edges_1e15[-1] + model._t0.sum()) + 1.0
+    assert len(grid) < 10 * len(model.grid)

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy.special import ndtr
 
-from inversion._stack import ramp_integral, refinement_points, slice_amounts, stack_table
+from inversion.fit._stack import ramp_integral, refinement_points, slice_amounts, stack_table
 
 __all__: list[str] = []
 
@@ -91,3 +91,19 @@ def test_sample_without_substrate_ends_with_empty_rows():
     assert amounts.sum() == pytest.approx(150.0, rel=1e-9)
     deep = edges[1:] > 150.0 + 10 * 6.0
     assert np.all(widths[deep] < 1e-12) and np.all(fractions[deep] == 0.0)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_compiled_amounts_equal_the_numpy_version(seed):
+    from inversion.fit._stack import slice_amounts_numpy
+
+    rng = np.random.default_rng(100 + seed)
+    n = int(rng.integers(1, 5))
+    t = rng.uniform(0.0, 300.0, n)
+    w = rng.uniform(0.0, 60.0, n) * (rng.uniform(size=n) > 0.3)
+    substrate = bool(rng.integers(2))
+    edges = np.sort(np.concatenate([[0.0], rng.uniform(0.0, t.sum() + 500.0, 300),
+                                    refinement_points(t, w, np.ones(n, bool)).clip(0)]))
+    fast = slice_amounts(edges, t, w, substrate)
+    slow = slice_amounts_numpy(edges, t, w, substrate)
+    assert np.allclose(fast, slow, rtol=1e-12, atol=1e-12 * max(1.0, t.sum()))

@@ -29,7 +29,7 @@ __all__ = ["main", "build_parser", "COMMANDS", "PROGRAM"]
 from .._about import PROGRAM, version
 
 #: Command names in the order they are listed; each maps to ``inversion.cli._<name>``.
-COMMANDS = ["check", "simulate", "invert", "report", "series", "demo"]
+COMMANDS = ["check", "simulate", "plan", "invert", "report", "series", "demo"]
 
 log = logging.getLogger("sondage")
 

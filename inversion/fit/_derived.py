@@ -17,7 +17,6 @@ import numpy as np
 
 from forward import nm_from_1e15
 
-from ._profiles import LayerStack
 from ._roles import Role
 
 __all__ = ["derived_names", "derived_values", "depth_nm"]
@@ -116,16 +115,17 @@ def derived_values(objective, theta) -> np.ndarray:
     else:
         fractions = objective.node_fractions(theta)
         a, b = objective.edges_1e15[:-1], objective.edges_1e15[1:]
-        inside = np.clip(spec.nodes["depth_1e15"] - a, 0.0, b - a)
+        inside = np.clip(spec.nodes["total_depth_1e15"] - a, 0.0, b - a)
         per_species = inside @ fractions
     for e in _total_elements(objective):
         values.append(float(per_species[objective.species_element == e].sum()))
     return np.array(values, dtype=float)
 
 
-def depth_nm(objective):
-    """Slice-centre depths in nm from the run's layers (at their run-file areal densities,
-    sharp interfaces), or None if a layer has no atomic density."""
+def depth_nm(objective, depth_1e15):
+    """Depths in nm of depths in 1e15 atoms/cm2, through the run's layers at their run-file
+    areal densities (sharp interfaces), or None if a layer has no atomic density.  Below a
+    sample without substrate the last layer's scale continues."""
     spec = objective.spec
     layers = spec.layers
     nm_per = []
@@ -133,11 +133,11 @@ def depth_nm(objective):
         if L.atoms_per_cm3 is None:
             return None
         nm_per.append(nm_from_1e15(1.0, L.atoms_per_cm3))
-    stack = LayerStack(objective.edges_1e15, len(spec.species), len(layers),
-                       layers[-1].substrate)
-    w = stack.weights(objective.base_thickness, np.zeros(stack.n_interfaces))
-    per_slice = w[:, : len(layers)] @ np.array(nm_per)
-    if not layers[-1].substrate:  # below the sample: keep the last layer's scale
-        per_slice = per_slice + w[:, -1] * nm_per[-1]
-    edges_nm = np.concatenate([[0.0], np.cumsum(objective.widths_1e15 * per_slice)])
-    return 0.5 * (edges_nm[1:] + edges_nm[:-1])
+    depth = np.asarray(depth_1e15, dtype=float)
+    tops = np.concatenate([[0.0], np.cumsum(objective.base_thickness)])
+    out = np.zeros_like(depth)
+    for k, per in enumerate(nm_per):
+        top = tops[k] if k < tops.size else tops[-1]
+        bottom = tops[k + 1] if k + 1 < tops.size and not (k == len(nm_per) - 1) else np.inf
+        out += per * np.clip(np.minimum(depth, bottom) - top, 0.0, None)
+    return out

@@ -42,9 +42,15 @@ def nominal_theta(objective, values: dict | None = None) -> np.ndarray:
     return np.array(theta)
 
 
+#: channels expecting less than this fraction of the largest expected count are left out of
+#: the Fisher information (their counts are round-off)
+MU_FLOOR = 1e-9
+
+
 def fd_steps(objective, theta, rel_step: float) -> np.ndarray:
     """Central-difference steps per parameter: ``rel_step`` x |value| for areal densities
-    and widths (x the prior sd at zero), ``rel_step`` x max(|value|, prior sd) otherwise.
+    and widths (x the prior sd at zero), ``rel_step`` x the prior sd for nuisances,
+    ``rel_step`` x max(|value|, prior sd) otherwise.
 
     Why 1e-3 is a good step: the expected counts are smooth in every parameter, so a central
     difference errs by O(h^2) relative to the scale on which the spectrum changes (about
@@ -56,6 +62,10 @@ def fd_steps(objective, theta, rel_step: float) -> np.ndarray:
         sd = float(p.prior.dist.std())
         if p.role in (Role.AREAL_DENSITY, Role.MIXING) and value != 0:
             scale = abs(value)
+        elif p.role.is_nuisance and math.isfinite(sd) and sd > 0:
+            # a nuisance moves the spectrum as a whole (the gain shifts high channels by
+            # hundreds of times its relative change): step by a fraction of its prior sd
+            scale = sd
         else:
             scale = max(abs(value), sd) if math.isfinite(sd) else max(abs(value), 1.0)
         steps.append(rel_step * scale)
@@ -84,7 +94,9 @@ def fisher_matrix(objective, theta, rel_step: float = 1e-3, scale: float = 1.0) 
         down[i] -= h
         grads.append(scale * (objective.predict(up) - objective.predict(down)) / (2 * h))
     g = np.array(grads)
-    keep = mu > 0
+    # channels whose expected counts are round-off (1e-26 above a surface edge) would divide
+    # the derivatives' own round-off by almost nothing: keep channels that hold counts
+    keep = mu > MU_FLOOR * (float(mu.max()) if mu.size else 0.0)
     return (g[:, keep] / mu[keep]) @ g[:, keep].T
 
 

@@ -18,13 +18,18 @@ from scipy.special import gammaln, xlogy
 import forward
 from forward import InputError
 
+from ._stack import point_composition, refinement_points, stack_table
 from . import _derived
-from ._profiles import LayerStack, NodeProfile, stick_breaking
+from ._profiles import NodeProfile, stick_breaking
 from ._roles import Role
 from ._spec import FitSpec
 from ._window import film_floor_channel
 
-__all__ = ["Objective", "ModelBuilder"]
+__all__ = ["Objective", "ModelBuilder", "TAIL_WIDTHS"]
+
+#: the slice grid reaches this many mixing widths below the deepest interface, so that the
+#: Gaussian tails of every layer lie inside it (they are below 1e-15 there)
+TAIL_WIDTHS = 8.0
 
 
 class ModelBuilder:
@@ -98,25 +103,83 @@ class _Draw:
 
 
 class _Profiles:
-    """The fit's profile construction on one model's slice grid."""
+    """The fit's profile construction: one slice table per draw.
 
-    def __init__(self, spec: FitSpec, edges_1e15):
-        self.edges_1e15 = np.asarray(edges_1e15, dtype=float)
-        layers = spec.layers
-        if spec.profile == "layers":
-            self.stack = LayerStack(self.edges_1e15, len(spec.species), len(layers),
-                                    layers[-1].substrate)
-            self.nodes = None
-        else:
-            n = spec.nodes
-            self.stack = None
-            self.nodes = NodeProfile(self.edges_1e15, len(spec.species), n["columns"],
-                                     n["count"], n["depth_1e15"], n["below"])
+    The layer model lays its slices out on the grid that follows the sample
+    (:meth:`forward.ForwardModel.sample_edges`: every layer's nominal slices stretched with its
+    areal density, so each interface is a slice edge at its current depth in every evaluation),
+    adds edges around each interface whose mixing is free at fixed multiples of its width
+    (:func:`inversion._stack.refinement_points`: slices there are fine relative to the width and
+    move with it), and fills them with the atom-conserving stack
+    (:func:`inversion._stack.stack_table`), whose slices' areal densities follow from the atoms
+    they hold.  The node model keeps the model's nominal grid.
+    """
 
-    def fractions(self, draw: _Draw) -> np.ndarray:
-        if self.stack is not None:
-            return self.stack.fractions(draw.thickness, draw.mixing, draw.compositions)
-        return self.nodes.fractions(draw.node_params)
+    def __init__(self, spec: FitSpec, n_interfaces: int, substrate: bool):
+        self.layers = spec.profile == "layers"
+        self.substrate = bool(substrate)
+        self.refine = np.zeros(n_interfaces, dtype=bool)
+        if Role.MIXING in spec.index:
+            self.refine[spec.index[Role.MIXING][1]] = True
+        self.node_settings = dict(spec.nodes)
+        self.n_species = len(spec.species)
+        # the run file's layers, around a node range inside them (mixed model)
+        thick = [L.areal_density_1e15 for L in spec.layers if not L.substrate]
+        self.layer_tops = np.concatenate([[0.0], np.cumsum(thick)])
+        self.layer_compositions = np.array([L.composition for L in spec.layers], dtype=float)
+        self._nodes = None
+
+    def nodes(self, model) -> NodeProfile:
+        if self._nodes is None or self._nodes.edges_1e15.size != model.grid.edges_1e15.size \
+                or not np.array_equal(self._nodes.edges_1e15, model.grid.edges_1e15):
+            n = self.node_settings
+            self._nodes = NodeProfile(model.grid.edges_1e15, self.n_species, n["columns"],
+                                      n["node_depth_1e15"], n["below"],
+                                      layer_tops_1e15=self.layer_tops,
+                                      layer_compositions=self.layer_compositions)
+        return self._nodes
+
+    def edges(self, model, draw) -> np.ndarray:
+        """Slice edges (auxiliary depth, see :mod:`inversion._stack`) of the layer model."""
+        t, w = draw.thickness, draw.mixing
+        edges = model.sample_edges(t, draw.nuisance)
+        if t.size:
+            # the Gaussian tails of every finite layer end inside the grid (conservation)
+            reach = float(t.sum()) + TAIL_WIDTHS * float(w.max() if w.size else 0.0)
+            if edges[-1] < reach:
+                edges = np.append(edges, reach)
+            extra = refinement_points(t, w, self.refine)
+            if extra.size:
+                edges = np.sort(np.concatenate([edges, np.clip(extra, 0.0, edges[-1])]))
+        return edges
+
+    def table(self, model, draw):
+        """``(widths_1e15, fractions)`` of one draw."""
+        if self.layers:
+            widths, fractions, _ = stack_table(self.edges(model, draw), draw.thickness,
+                                               draw.mixing, draw.compositions, self.substrate)
+            return widths, fractions
+        return model.grid.widths_1e15, self.nodes(model).fractions(draw.node_params)
+
+    def points(self, model, draw, depth_1e15) -> np.ndarray:
+        """Atom fractions at depths (1e15 atoms/cm2 from the surface), ``(n, n_species)``:
+        the layer model's continuous profile, the node model's interpolated nodes."""
+        depth = np.asarray(depth_1e15, dtype=float)
+        if not self.layers:
+            return self.nodes(model).fractions_at(draw.node_params, depth)
+        edges = self.edges(model, draw)
+        widths, _, _ = stack_table(edges, draw.thickness, draw.mixing, draw.compositions,
+                                   self.substrate)
+        # the areal density above each edge; the auxiliary depth of each requested depth by
+        # interpolation between edges (the atom density is smooth between them), then the
+        # exact composition there
+        above = np.concatenate([[0.0], np.cumsum(widths)])
+        keep = np.concatenate([[True], np.diff(above) > 0])
+        z = np.interp(depth, above[keep], edges[keep])
+        fractions, _ = point_composition(z, draw.thickness, draw.mixing, draw.compositions,
+                                         self.substrate)
+        fractions[depth > above[-1]] = 0.0
+        return fractions
 
 
 class Objective:
@@ -165,7 +228,7 @@ class Objective:
 
     def __setstate__(self, state):
         self.__dict__.update(state)
-        self._profiles = _Profiles(self.spec, self.edges_1e15)
+        self._profiles = _Profiles(self.spec, self.n_interfaces, self.substrate)
 
     @property
     def model(self):
@@ -192,7 +255,7 @@ class Objective:
         self.base_compositions = np.array([L.composition for L in layers])
         self.names = spec.names
         self.ndim = len(spec.parameters)
-        self._profiles = _Profiles(spec, self.edges_1e15)
+        self._profiles = _Profiles(spec, self.n_interfaces, self.substrate)
         self.mask = self._window() & self.measured
         if not self.mask.any():
             raise InputError("empty channel window: no measured channel inside it",
@@ -240,6 +303,13 @@ class Objective:
                              where=f"{self.spec.source}: fit.windows")
         mask[lo:hi + 1] = True
         return mask
+
+    def fwhm_channels(self) -> int:
+        """The run file's detector resolution in channels (at least 1)."""
+        nu = self.default_nuisance
+        energy = np.asarray(self.model.channel_energy_keV(nu))
+        kev_per_channel = abs(float(np.median(np.diff(energy)))) if energy.size > 1 else 1.0
+        return max(1, int(math.ceil(float(nu.fwhm_keV) / kev_per_channel)))
 
     # ----- parameters to model inputs -----
     def _draw(self, theta) -> _Draw | None:
@@ -296,18 +366,20 @@ class Objective:
         return np.zeros(self.channels.size)
 
     def unpack(self, theta):
-        """Free parameters to ``(fractions, nuisance, background)``; None outside physical limits.
+        """What one parameter vector sets: ``thickness``, ``mixing``, ``compositions``,
+        ``node_params``, ``nuisance`` and the ``background`` levels; None outside the physical
+        limits."""
+        return self._draw(theta)
 
-        Returns
-        -------
-        fractions : ndarray (n_slices, n_species)
-        nuisance : forward.Nuisance
-        background : ndarray (n_window_channels,) counts per channel
-        """
+    def slice_table(self, theta):
+        """``(widths_1e15, fractions, nuisance)`` of one draw on the fit's own model; None
+        outside the physical limits.  ``widths_1e15`` is each slice's areal density, from the
+        surface down, ``fractions`` its atom fractions ``(n_slices, n_species)``."""
         draw = self._draw(theta)
         if draw is None:
             return None
-        return self._profiles.fractions(draw), draw.nuisance, self._window_background(draw)
+        widths, fractions = self._profiles.table(self.model, draw)
+        return widths, fractions, draw.nuisance
 
     def compositions(self, theta):
         """Layer compositions (n_layers, n_species) for this draw (free shares applied)."""
@@ -317,24 +389,24 @@ class Objective:
             return self.base_compositions.copy()
         return self._shared(theta, *slots)
 
-    def profile(self, theta):
-        """The fraction table (n_slices, n_species) for one draw."""
-        state = self.unpack(theta)
-        if state is None:
+    def profile(self, theta, depth_1e15):
+        """Atom fractions ``(n, n_species)`` of one draw at depths in 1e15 atoms/cm2 (the layer
+        model's continuous profile, the node model's interpolated nodes)."""
+        draw = self._draw(theta)
+        if draw is None:
             raise ValueError("parameters outside their physical limits")
-        return state[0]
+        return self._profiles.points(self.model, draw, depth_1e15)
 
     # ----- predictions -----
     def _whole_range(self):
-        """(model, profiles) computing every channel: the fit's own model, or, when that one
-        skips the channels below the fit window, a second model of the same run."""
+        """The model computing every channel: the fit's own model, or, when that one skips
+        the channels below the fit window, a second model of the same run."""
         if not (getattr(self.model, "first_channel", 0)
                 and hasattr(self.build_model, "full_range")):
-            return self.model, self._profiles
+            return self.model
         whole = self.__dict__.get("_whole")
         if whole is None:
-            model = self.build_model.full_range()()
-            whole = self._whole = (model, _Profiles(self.spec, model.grid.edges_1e15))
+            whole = self._whole = self.build_model.full_range()()
         return whole
 
     def predict(self, theta, channels=None, *, per_species=False):
@@ -360,18 +432,19 @@ class Objective:
         if draw is None:
             return None
         if channels is None:
-            model, profiles = self.model, self._profiles
+            model = self.model
             rows = self.mask
         else:
-            model, profiles = self._whole_range()
+            model = self._whole_range()
             rows = slice(None) if isinstance(channels, str) and channels == "all" else \
                 np.asarray(channels, dtype=int)
-        fractions = profiles.fractions(draw)
+        widths, fractions = self._profiles.table(model, draw)
         if per_species:
             parts = np.asarray(model.expected_counts(fractions, draw.nuisance,
-                                                     per_species=True), dtype=float)
+                                                     widths_1e15=widths, per_species=True),
+                               dtype=float)
             return np.maximum(parts, 0.0)[:, rows]
-        mu = np.asarray(model.expected_counts(fractions, draw.nuisance))
+        mu = np.asarray(model.expected_counts(fractions, draw.nuisance, widths_1e15=widths))
         if channels is None:
             # the kernel's channel integrals are differences of large numbers: clip the
             # round-off (|mu| ~ 1e-12 counts) below zero, which no Poisson mean can be
@@ -433,8 +506,8 @@ class Objective:
         return _derived.derived_values(self, theta)
 
     def node_fractions(self, theta):
-        """The node profile's fraction table (free-form profile only)."""
+        """The node profile's fraction table on the model's grid (free-form profile only)."""
         slots = self.spec.index[Role.NODE]
         params = np.empty(slots[0].size)
         params[slots[1]] = np.asarray(theta, dtype=float)[slots[0]]
-        return self._profiles.nodes.fractions(params)
+        return self._profiles.nodes(self.model).fractions(params)

@@ -1,15 +1,17 @@
-"""Profile models: a few parameters in, a (slices x species) atom-fraction table out.
+"""Profile models: a few parameters in, a slice table (areal density and atom fractions per
+slice) out.
 
-Two models share one contract, ``fractions(...) -> ndarray (n_slices, n_species)``, evaluated
-on the forward model's fixed slice grid (edges in 1e15 atoms/cm2):
-
-* :class:`LayerStack`, layers with error-function mixing at each interface;
-* :class:`NodeProfile`, a free-form profile through K nodes in additive log-ratio space.
+* :class:`LayerStack`, layers with mixing at each interface, atoms conserved
+  (:mod:`inversion.fit._stack`): its slices follow the sample, and their areal densities are
+  the atoms they hold;
+* :class:`NodeProfile`, a free-form profile through K nodes (additive log-ratios at the nodes,
+  fractions linear in depth between them), on the forward model's nominal grid, alone or over
+  a depth range inside the run file's layers.
 
 Every row is a slice AVERAGE of the profile, so expected counts are continuous in every
 parameter.  Rows are non-negative and sum to one, except where a sample without a substrate
-ends: there a row sums to the part of the slice that holds atoms (0 below the sample).
-Equations: README.md, "The [fit] table".
+ends: there a row holds nothing (or, for the node model, the part of the slice above its last
+node).  Equations: README.md, "The [fit] table".
 """
 
 from __future__ import annotations
@@ -18,6 +20,8 @@ import math
 
 import numpy as np
 from scipy.special import ndtr
+
+from ._stack import point_composition, stack_table
 
 __all__ = ["step_average", "LayerStack", "NodeProfile", "alr_to_fractions", "stick_breaking"]
 
@@ -68,14 +72,11 @@ def step_average(edges_1e15, position_1e15, width_1e15):
 
 
 class LayerStack:
-    """Layers of fixed or free composition with error-function mixing at each interface.
+    """Layers of fixed or free composition, each box blurred by its own interfaces, atoms
+    conserved (the construction and its equations: :mod:`inversion.fit._stack`).
 
     Parameters
     ----------
-    edges_1e15 : ndarray, shape (n + 1,)
-        Slice edges of the forward model's grid (1e15 atoms/cm2).
-    n_species : int
-        Columns of the fraction table.
     n_layers : int
         Number of layers, surface first, the substrate (if any) last.
     substrate : bool
@@ -83,70 +84,38 @@ class LayerStack:
 
     Notes
     -----
-    With interface i at depth ``z_i`` (cumulative areal density of the layers above it) and
-    mixing width ``w_i``, ``S_i(z) = Phi((z - z_i) / w_i)`` and layer weights
-    ``W_0 = 1 - S_0``, ``W_k = S_{k-1} - S_k``, ``W_last = S_last``; the composition is
-    ``f(z) = sum_k W_k(z) c_k``, identical to ``f_above + (f_below - f_above) S_i`` at an
-    isolated interface.  Where two interfaces of very different widths overlap, a weight can
-    turn negative; it is then set to zero and the weights renormalised, which keeps every row
-    on the simplex.
+    Interface ``k`` is the bottom of finite layer ``k`` (areal density ``t_k``) with mixing
+    width ``w_k``.  Every layer's atoms are counted once for any widths: the slices of layer
+    ``k`` hold exactly ``t_k`` atoms, compositions are non-negative and sum to one, and an
+    isolated interface between thick layers is the error-function step
+    ``f_above + (f_below - f_above) Phi((z - z_k) / w_k)``.  Nothing is clipped.
     """
 
-    def __init__(self, edges_1e15, n_species: int, n_layers: int, substrate: bool):
-        self.edges_1e15 = np.asarray(edges_1e15, dtype=float)
-        self.n_species = int(n_species)
+    def __init__(self, n_layers: int, substrate: bool):
         self.n_layers = int(n_layers)
         self.substrate = bool(substrate)
-        #: interfaces: between layers, plus the bottom of the last layer when vacuum is below
-        self.n_interfaces = self.n_layers - 1 if self.substrate else self.n_layers
+        #: finite layers; each has an interface at its bottom (to the next layer, the
+        #: substrate, or vacuum)
         self.n_thick = self.n_layers - 1 if self.substrate else self.n_layers
+        self.n_interfaces = self.n_thick
 
-    def weights(self, areal_density_1e15, mixing_1e15):
-        """Slice-averaged weight of each layer (and of vacuum, last column, if no substrate).
-
-        Parameters
-        ----------
-        areal_density_1e15 : array_like, shape (n_thick,)
-            Areal density of each layer above the substrate (1e15 atoms/cm2).
-        mixing_1e15 : array_like, shape (n_interfaces,)
-            Mixing width (Gaussian standard deviation) of each interface (1e15 atoms/cm2).
+    def table(self, edges, areal_density_1e15, mixing_1e15, compositions):
+        """The slice table on slice edges of auxiliary depth.
 
         Returns
         -------
-        ndarray, shape (n_slices, n_interfaces + 1)
+        widths_1e15 : ndarray, shape (n_slices,)
+            Areal density of each slice (the atoms it holds).
+        fractions : ndarray, shape (n_slices, n_species)
         """
-        depth = np.cumsum(np.asarray(areal_density_1e15, dtype=float))
-        n = self.edges_1e15.size - 1
-        steps = np.empty((n, self.n_interfaces))
-        for i in range(self.n_interfaces):
-            steps[:, i] = step_average(self.edges_1e15, depth[i], float(mixing_1e15[i]))
-        w = np.empty((n, self.n_interfaces + 1))
-        w[:, 0] = 1.0 - steps[:, 0] if self.n_interfaces else 1.0
-        for k in range(1, self.n_interfaces):
-            w[:, k] = steps[:, k - 1] - steps[:, k]
-        if self.n_interfaces:
-            w[:, -1] = steps[:, -1]
-        np.clip(w, 0.0, None, out=w)
-        w /= w.sum(axis=1, keepdims=True)
-        return w
+        widths, fractions, _ = stack_table(edges, areal_density_1e15, mixing_1e15,
+                                           compositions, self.substrate)
+        return widths, fractions
 
-    def fractions(self, areal_density_1e15, mixing_1e15, compositions):
-        """Atom fractions on the grid.
-
-        Parameters
-        ----------
-        areal_density_1e15 : array_like, shape (n_thick,)
-        mixing_1e15 : array_like, shape (n_interfaces,)
-        compositions : array_like, shape (n_layers, n_species)
-            Atom fractions of each layer (rows on the simplex).
-
-        Returns
-        -------
-        ndarray, shape (n_slices, n_species)
-        """
-        w = self.weights(areal_density_1e15, mixing_1e15)
-        comps = np.asarray(compositions, dtype=float)
-        return w[:, : self.n_layers] @ comps
+    def points(self, depth, areal_density_1e15, mixing_1e15, compositions):
+        """Atom fractions ``(n, n_species)`` at auxiliary depths (see :mod:`._stack`)."""
+        return point_composition(depth, areal_density_1e15, mixing_1e15, compositions,
+                                 self.substrate)[0]
 
 
 def alr_to_fractions(logratios):
@@ -170,7 +139,8 @@ def alr_to_fractions(logratios):
 
 
 class NodeProfile:
-    """A free-form profile through K nodes, linear in additive log-ratio space.
+    """A free-form profile through K nodes: log-ratios sampled at the nodes, atom fractions
+    linear in depth between them.
 
     Parameters
     ----------
@@ -180,55 +150,138 @@ class NodeProfile:
         Columns of the fraction table.
     columns : sequence of int
         The species (columns) the nodes describe; the last one is the log-ratio reference.
-        Other columns stay zero.
-    n_nodes : int
-        Number of nodes K, evenly spaced from the surface to ``depth_1e15``.
-    depth_1e15 : float
-        Depth of the deepest node (1e15 atoms/cm2).
-    below : {"hold", "vacuum"}
-        Below the deepest node: keep its composition (a substrate) or nothing (vacuum).
+        Other columns stay zero inside the node range.
+    node_depth_1e15 : array_like, shape (K,)
+        Depths of the nodes, increasing: the range is ``[node_depth[0], node_depth[-1]]``.
+    below : {"hold", "vacuum", "layers"}
+        Outside the range: below it keep the deepest node's composition (``"hold"``, a
+        substrate) or nothing (``"vacuum"``); or the run file's layers above and below it
+        (``"layers"``, a mixed model: ``layer_tops_1e15`` and ``layer_compositions`` needed).
+    layer_tops_1e15 : array_like, optional
+        Top of every run-file layer and the bottom of the last finite one (L + 1 values for L
+        finite layers; a substrate continues below the last).
+    layer_compositions : array_like (n_layers, n_species), optional
 
     Notes
     -----
-    Node k holds log-ratios ``y_k`` (length m - 1).  The parameters are the surface node's
+    Node k holds log-ratios ``y_k`` (length m - 1).  The parameters are the first node's
     log-ratios ``y_0`` and the steps ``d_k = y_k - y_{k-1}``, so the smoothness prior (a
-    Gaussian random walk) is a product of independent normal priors on the parameters.  The
-    log-ratios are interpolated linearly to the slice centres and mapped to fractions with
-    :func:`alr_to_fractions`.
+    Gaussian random walk) is a product of independent normal priors on the parameters.  Each
+    node's fractions ``f_k`` follow from :func:`alr_to_fractions`; between nodes the fractions
+    are linear in depth, so they stay on the simplex, and each slice holds the exact integral
+    of that profile over its depth: a species' atoms in the slice table equal its profile's
+    integral (to rounding), for any grid.
     """
 
-    def __init__(self, edges_1e15, n_species, columns, n_nodes, depth_1e15, below="hold"):
+    def __init__(self, edges_1e15, n_species, columns, node_depth_1e15, below="hold", *,
+                 layer_tops_1e15=None, layer_compositions=None):
         self.edges_1e15 = np.asarray(edges_1e15, dtype=float)
-        self.centres_1e15 = 0.5 * (self.edges_1e15[1:] + self.edges_1e15[:-1])
+        self.widths_1e15 = np.diff(self.edges_1e15)
         self.n_species = int(n_species)
         self.columns = np.asarray(columns, dtype=int)
-        self.n_nodes = int(n_nodes)
-        self.depth_1e15 = float(depth_1e15)
+        self.node_depth_1e15 = np.asarray(node_depth_1e15, dtype=float)
+        self.n_nodes = self.node_depth_1e15.size
+        if self.n_nodes < 2 or np.any(np.diff(self.node_depth_1e15) <= 0):
+            raise ValueError("node depths must be at least two, strictly increasing")
+        self.top_1e15 = float(self.node_depth_1e15[0])
+        self.depth_1e15 = float(self.node_depth_1e15[-1])
+        if below not in ("hold", "vacuum", "layers"):
+            raise ValueError(f"below must be 'hold', 'vacuum' or 'layers', got {below!r}")
         self.below = below
-        self.node_depth_1e15 = np.linspace(0.0, self.depth_1e15, self.n_nodes)
         self.n_ratios = self.columns.size - 1
+        self._gaps = np.diff(self.node_depth_1e15)
+        self._edge_at = self._locate(self.edges_1e15)
         a, b = self.edges_1e15[:-1], self.edges_1e15[1:]
-        self._coverage = np.clip((self.depth_1e15 - a) / (b - a), 0.0, 1.0)
+        overlap = np.clip(np.minimum(b, self.depth_1e15) - np.maximum(a, self.top_1e15), 0.0,
+                          None)
+        self._coverage = overlap / np.where(b > a, b - a, 1.0)
+        self._base = None
+        if below == "layers":
+            tops = np.asarray(layer_tops_1e15, dtype=float)
+            comps = np.asarray(layer_compositions, dtype=float)
+            self._tops, self._comps = tops, comps
+            self._base = self._layer_average(a, b)
 
+    # ----- the run file's layers outside the range (mixed model) -----
+    def _layer_bounds(self):
+        tops = self._tops
+        n = self._comps.shape[0]
+        lo = np.array([tops[i] if i < tops.size else tops[-1] for i in range(n)])
+        hi = np.array([tops[i + 1] if i + 1 < tops.size else np.inf for i in range(n)])
+        return lo, hi
+
+    def _layer_average(self, a, b):
+        """Area-weighted composition of the run file's layers in each slice [a, b]."""
+        lo, hi = self._layer_bounds()
+        out = np.zeros((a.size, self.n_species))
+        span = np.where(b > a, b - a, 1.0)
+        for i in range(self._comps.shape[0]):
+            overlap = np.clip(np.minimum(b, hi[i]) - np.maximum(a, lo[i]), 0.0, None)
+            out += (overlap / span)[:, None] * self._comps[i]
+        return out
+
+    def _layer_points(self, depth):
+        lo, hi = self._layer_bounds()
+        out = np.zeros((depth.size, self.n_species))
+        for i in range(self._comps.shape[0]):
+            on = (depth >= lo[i]) & (depth < hi[i])
+            out[on] = self._comps[i]
+        return out
+
+    # ----- nodes -----
     @property
     def n_parameters(self) -> int:
         return self.n_nodes * self.n_ratios
+
+    def _locate(self, depth):
+        """(interval, offset into it, depth below the range) of each depth."""
+        z = np.clip(depth, self.top_1e15, self.depth_1e15)
+        k = np.clip(np.searchsorted(self.node_depth_1e15, z, side="right") - 1, 0,
+                    self.n_nodes - 2)
+        return k, z - self.node_depth_1e15[k], np.maximum(depth - self.depth_1e15, 0.0)
 
     def node_logratios(self, params):
         """Parameters (start, then steps; species-major) to node log-ratios, shape (K, m-1)."""
         p = np.asarray(params, dtype=float).reshape(self.n_ratios, self.n_nodes)
         return np.cumsum(p, axis=1).T
 
-    def fractions(self, params):
-        """Atom fractions on the grid, shape (n_slices, n_species)."""
-        y_nodes = self.node_logratios(params)
-        y = np.empty((self.centres_1e15.size, self.n_ratios))
-        for j in range(self.n_ratios):
-            y[:, j] = np.interp(self.centres_1e15, self.node_depth_1e15, y_nodes[:, j])
-        out = np.zeros((self.centres_1e15.size, self.n_species))
-        out[:, self.columns] = alr_to_fractions(y)
+    def node_fractions(self, params):
+        """Fractions of the described species at each node, shape (K, m)."""
+        return alr_to_fractions(self.node_logratios(params))
+
+    def fractions_at(self, params, depth_1e15):
+        """Atom fractions at depths (1e15 atoms/cm2), shape (n, n_species): linear in depth
+        between the nodes (point values)."""
+        depth = np.atleast_1d(np.asarray(depth_1e15, dtype=float))
+        f = self.node_fractions(params)
+        k, dz, _ = self._locate(depth)
+        t = (dz / self._gaps[k])[:, None]
+        out = np.zeros((depth.size, self.n_species))
+        out[:, self.columns] = (1.0 - t) * f[k] + t * f[k + 1]
+        outside = (depth < self.top_1e15) | (depth > self.depth_1e15)
         if self.below == "vacuum":
-            out *= self._coverage[:, None]
+            out[depth > self.depth_1e15] = 0.0
+        elif self.below == "layers":
+            out[outside] = self._layer_points(depth[outside])
+        return out
+
+    def fractions(self, params):
+        """Atom fractions on the grid, shape (n_slices, n_species): each slice's average of
+        the profile (exact: the integral of a piecewise-linear function)."""
+        f = self.node_fractions(params)
+        k, dz, extra = self._edge_at
+        # the profile's integral from the top of the range down to each edge
+        cum = np.concatenate([np.zeros((1, f.shape[1])),
+                              np.cumsum(0.5 * self._gaps[:, None] * (f[1:] + f[:-1]), axis=0)])
+        slope = (f[1:] - f[:-1]) / self._gaps[:, None]
+        integral = cum[k] + f[k] * dz[:, None] + 0.5 * slope[k] * (dz * dz)[:, None]
+        if self.below == "hold":
+            integral = integral + f[-1] * extra[:, None]
+        span = np.where(self.widths_1e15 > 0, self.widths_1e15, 1.0)[:, None]
+        out = np.zeros((self.widths_1e15.size, self.n_species))
+        out[:, self.columns] = np.maximum(np.diff(integral, axis=0) / span, 0.0)
+        if self.below == "layers":
+            out += (1.0 - self._coverage)[:, None] * self._base
         return out
 
 

@@ -7,6 +7,14 @@ parameter vector into model inputs is a handful of array assignments.
 
 A new nuisance joins with one enum member here (the field of :class:`forward.Nuisance` it
 sets, its physical limit) and one line in :data:`NUISANCES` (its name, unit and default prior).
+
+Default priors of the stopping nuisances come from the measured spread of our helium stopping
+against NIST ASTAR (:func:`forward.stopping_uncertainty`): per element a scale
+``normal(1, scale_sd)`` and a slope ``normal(0, slope_sd)`` of the factor
+``scale * (E / 1000 keV)**slope``.  The straggling scale multiplies every straggling variance:
+published corrections to Bohr's value (Lindhard & Scharff 1953; Chu, Phys. Rev. A 13 (1976)
+2057; Yang, O'Connor & Wang, NIM B 61 (1991) 149) differ by tens of per cent for heavy targets,
+so its default prior is lognormal with median 1 and sigma 0.3.
 """
 
 from __future__ import annotations
@@ -19,11 +27,15 @@ import numpy as np
 from ._priors import Prior, make_prior
 
 __all__ = ["Role", "NuisanceKind", "NUISANCES", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD",
-           "RoleIndex"]
+           "STRAGGLING_SIGMA", "RoleIndex"]
 
-#: Relative sd of the per-element stopping scale prior.  Placeholder until the measured spread
-#: of our helium stopping against NIST ASTAR (benchmarks/RESULTS.md) is available.
+#: Relative sd of the stopping scale prior of an element whose stopping comes from the user's
+#: own table (the run file's ``[physics] stopping_tables``): the table is as well known as the
+#: user says; 0.03 unless the run file's ``[fit.free]`` gives another prior.  Built-in stopping
+#: gets the measured widths of :func:`forward.stopping_uncertainty`.
 DEFAULT_STOPPING_SD = 0.03
+#: sigma of the log of the straggling scale's default lognormal prior (median 1)
+STRAGGLING_SIGMA = 0.3
 
 
 class Role(enum.Enum):
@@ -49,7 +61,16 @@ class Role(enum.Enum):
     GAIN = ("gain_keV", 0.0, None, "gain_keV", False)
     OFFSET = ("offset_keV", None, None, "offset_keV", False)
     FWHM = ("fwhm_keV", 0.0, None, "fwhm_keV", False)
-    STOPPING = ("stopping", 0.0, None, "stopping_scale", True)
+    #: an element's stopping scale, in (0.2, 5): no evaluation of helium stopping is off by a
+    #: factor of five (the measured spread against NIST ASTAR is a few per cent, and 20 % for
+    #: oxygen in oxides); target: element
+    STOPPING = ("stopping", 0.2, 5.0, "stopping_scale", True)
+    #: the energy dependence of an element's stopping, in (-0.5, 0.5): a slope of 0.5 changes
+    #: the stopping tenfold between 10 keV and 1 MeV, far beyond any evaluation's error (the
+    #: measured slopes against NIST ASTAR are a few hundredths); target: element
+    SLOPE = ("slope", -0.5, 0.5, "stopping_slope", True)
+    #: one factor on every straggling variance, > 0
+    STRAGGLING = ("straggling_scale", 0.0, None, "straggling_scale", False)
     #: background level (counts/channel), >= 0; target: 0 (flat or low end), 1 (high end)
     BACKGROUND = ("background", 0.0, None, None, False)
 
@@ -63,7 +84,7 @@ class Role(enum.Enum):
     @property
     def strict(self) -> bool:
         """True when the lower limit itself is outside (a nuisance scale or a share)."""
-        return self.field is not None or self.upper is not None
+        return (self.field is not None and self.lower is not None) or self.upper is not None
 
     @property
     def is_nuisance(self) -> bool:
@@ -98,7 +119,8 @@ class NuisanceKind:
         Parameter name; ``{element}`` is replaced for a per-element nuisance.
     unit : str
     default_prior : callable
-        ``default_prior(value) -> Prior`` from the run file's value.
+        ``default_prior(value, widths) -> Prior`` from the run file's value and, for the
+        stopping nuisances, the element's ``(scale_sd, slope_sd)``.
     """
 
     role: Role
@@ -106,20 +128,24 @@ class NuisanceKind:
     unit: str
     default_prior: object
 
-    def prior(self, value: float) -> Prior:
-        return self.default_prior(value)
+    def prior(self, value: float, widths=(DEFAULT_STOPPING_SD, 0.0)) -> Prior:
+        return self.default_prior(value, widths)
 
 
 #: the nuisances, in the order their parameters take (README.md, "Quantities that can be free")
 NUISANCES = (
     NuisanceKind(Role.FLUENCE_SCALE, "fluence_scale", "",
-                 lambda v: make_prior("normal", v, 0.05)),
+                 lambda v, w: make_prior("normal", v, 0.05)),
     NuisanceKind(Role.GAIN, "gain_keV", "keV/channel",
-                 lambda v: make_prior("normal", v, 0.005 * abs(v))),
-    NuisanceKind(Role.OFFSET, "offset_keV", "keV", lambda v: make_prior("normal", v, 2.0)),
-    NuisanceKind(Role.FWHM, "fwhm_keV", "keV", lambda v: make_prior("normal", v, 0.10 * v)),
+                 lambda v, w: make_prior("normal", v, 0.005 * abs(v))),
+    NuisanceKind(Role.OFFSET, "offset_keV", "keV", lambda v, w: make_prior("normal", v, 2.0)),
+    NuisanceKind(Role.FWHM, "fwhm_keV", "keV", lambda v, w: make_prior("normal", v, 0.10 * v)),
     NuisanceKind(Role.STOPPING, "stopping.{element}", "",
-                 lambda v: make_prior("normal", 1.0, DEFAULT_STOPPING_SD)),
+                 lambda v, w: make_prior("normal", 1.0, w[0])),
+    NuisanceKind(Role.STRAGGLING, "straggling_scale", "",
+                 lambda v, w: make_prior("lognormal", v, STRAGGLING_SIGMA)),
+    NuisanceKind(Role.SLOPE, "slope.{element}", "",
+                 lambda v, w: make_prior("normal", v, w[1])),
 )
 #: names of the scalar nuisances (``stopping.<El>`` for every element comes on top)
 NUISANCE_NAMES = tuple(k.name for k in NUISANCES if not k.role.per_element)

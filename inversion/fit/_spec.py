@@ -18,11 +18,13 @@ import numpy as np
 
 from forward import InputError
 
+from ._nodes import node_settings
 from ._priors import Prior, make_prior, parse_prior
 from ._roles import DEFAULT_STOPPING_SD, NUISANCE_NAMES, NUISANCES, Role, RoleIndex
 
 __all__ = ["Parameter", "FitSettings", "FitSpec", "read_fit_settings", "bind_fit",
-           "parse_fit", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD"]
+           "parse_fit", "stopping_widths", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD",
+           "USER_TABLE_WIDTHS"]
 
 _TOP_KEYS = {
     "profile": "'layers' or 'nodes'",
@@ -34,19 +36,11 @@ _TOP_KEYS = {
     "tau_multiple": "chain length wanted, in autocorrelation times (>= 1)",
     "max_steps": "step cap (>= 1)",
     "check_every": "steps between convergence checks (>= 10)",
-    "walkers": "number of walkers (0: max(32, 4 x free parameters))",
+    "walkers": "number of walkers (0: automatic, see README)",
     "band_draws": "posterior draws used for bands and predictive spectra (>= 10)",
     "nodes": "table for profile = 'nodes'",
-    "moves": "'stretch' or 'differential'",
+    "moves": "'stretch', 'differential' or 'subspace'",
     "depth_limit_1e15": "depth of the model's slice grid (1e15 atoms/cm2, > 0)",
-}
-_NODE_KEYS = {
-    "count": "number of nodes, 3 to 60",
-    "depth_1e15": "depth of the deepest node (1e15 atoms/cm2, > 0)",
-    "step_sd": "sd of the log-ratio step between neighbouring nodes (> 0)",
-    "start_sd": "sd of the surface node's log-ratios (> 0)",
-    "species": "list of species the nodes describe (at least 2)",
-    "below": "'hold' or 'vacuum'",
 }
 #: the layer-model quantities a prior may not put mostly below zero
 _NON_NEGATIVE = (Role.AREAL_DENSITY, Role.MIXING)
@@ -181,7 +175,12 @@ class FitSpec:
     @property
     def n_walkers(self) -> int:
         ndim = len(self.parameters)
-        n = self.walkers or max(32, 4 * ndim)
+        # the free-form profile: the fewest walkers the moves allow.  The chain must be 50
+        # autocorrelation times long whatever the walker count, and on the 22-parameter node
+        # benchmark 46 walkers mixed as fast per step as 84 (tau 79 and 83 steps,
+        # benchmarks/RESULTS.md), so every further walker only costs evaluations
+        auto = 2 * ndim + 2 if self.profile == "nodes" else max(32, 4 * ndim)
+        n = self.walkers or auto
         n = max(n, 2 * ndim + 2)
         return n + (n % 2)
 
@@ -247,9 +246,9 @@ def read_fit_settings(fit: dict | None, source: str, n_channels: int) -> FitSett
     # the stretch move on both the 21-parameter node benchmark and the 10-parameter layer
     # benchmark (benchmarks/RESULTS.md, "Inversion"): they are the default for both models
     moves = fit.get("moves", "differential")
-    if moves not in ("stretch", "differential"):
-        raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential'",
-                         where=where("moves"))
+    if moves not in ("stretch", "differential", "subspace"):
+        raise InputError(f"unknown moves {moves!r}; allowed: 'stretch', 'differential', "
+                         "'subspace'", where=where("moves"))
     out.moves = moves
     if "depth_limit_1e15" in fit:
         out.depth_limit_1e15 = _number(fit["depth_limit_1e15"], "depth_limit_1e15", where,
@@ -291,10 +290,49 @@ def parse_fit(fit: dict | None, run, model) -> FitSpec:
     """
     source = str(getattr(run, "source", "run.toml"))
     settings = read_fit_settings(fit, source, int(getattr(model, "n_channels", 0) or 0))
-    return bind_fit(settings, model.sample_columns(), model.default_nuisance())
+    from ._nodes import depth_resolution
+
+    physics = getattr(run, "physics", None)
+    resolution = depth_resolution(model, getattr(physics, "slice_fraction", 0.25))
+    return bind_fit(settings, model.sample_columns(), model.default_nuisance(),
+                    stopping_widths(run, model.sample_columns()), resolution=resolution)
 
 
-def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
+#: prior widths (scale sd, slope sd) of the stopping of an element whose stopping the run file
+#: replaces by the user's own table: as well known as the user says (see DEFAULT_STOPPING_SD)
+USER_TABLE_WIDTHS = (DEFAULT_STOPPING_SD, 0.02)
+
+
+def stopping_widths(run, columns) -> dict:
+    """``{element: (scale_sd, slope_sd)}``: the default prior widths of each element's stopping
+    scale and slope (:func:`forward.stopping_uncertainty`, the measured spread against NIST
+    ASTAR; oxygen in a layer with other elements counts as oxygen bound in an oxide;
+    :data:`USER_TABLE_WIDTHS` for an element with a user table)."""
+    import forward
+
+    physics = getattr(run, "physics", None)
+    tables = dict(getattr(physics, "stopping_tables", {}) or {})
+    carbon = getattr(physics, "carbon", "graphite")
+    ion = getattr(getattr(run, "beam", None), "species", "4He")
+    oxide = False
+    if "O" in columns.elements:
+        o = columns.elements.index("O")
+        for layer in columns.layers:
+            present = {int(columns.species_element[c])
+                       for c in np.flatnonzero(np.asarray(layer.composition) > 0)}
+            oxide = oxide or (o in present and len(present) > 1)
+    out = {}
+    for el in columns.elements:
+        if el in tables:
+            out[el] = USER_TABLE_WIDTHS
+        else:
+            out[el] = tuple(float(x) for x in forward.stopping_uncertainty(
+                el, ion, carbon=carbon, oxide=oxide and el == "O"))
+    return out
+
+
+def bind_fit(settings: FitSettings, columns, default_nuisance, widths=None, *,
+             resolution=None) -> FitSpec:
     """The :class:`FitSpec` of checked settings for one sample.
 
     Parameters
@@ -305,7 +343,14 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     default_nuisance : forward.Nuisance
         The run file's calibration, resolution and stopping scales (centres of the default
         nuisance priors).
+    widths : dict, optional
+        ``{element: (scale_sd, slope_sd)}`` of the default stopping priors
+        (:func:`stopping_widths`); default :data:`DEFAULT_STOPPING_SD` and 0.02 for every element.
+    resolution : (centres_1e15, resolution_1e15), optional
+        The run's depth resolution (:func:`inversion.fit._nodes.depth_resolution`), from which
+        the free-form profile's node count defaults.
     """
+    widths = dict(widths or {})
     where = _Where(settings.source)
     layers = list(columns.layers)
     if not layers:
@@ -345,10 +390,12 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     for kind in NUISANCES:
         field_value = getattr(default_nuisance, kind.role.field)
         if kind.role.per_element:
+            field_value = np.asarray(field_value, dtype=float)
             for e, el in enumerate(spec.elements):
-                v = float(field_value[e])
+                v = float(field_value[e]) if field_value.size else 0.0
+                w = widths.get(el, USER_TABLE_WIDTHS)
                 available[kind.name.format(element=el)] = (
-                    kind.unit, kind.role, e, lambda kind=kind, v=v: kind.prior(v))
+                    kind.unit, kind.role, e, lambda kind=kind, v=v, w=w: kind.prior(v, w))
         else:
             v = float(field_value)
             available[kind.name] = (kind.unit, kind.role, 0, lambda kind=kind, v=v: kind.prior(v))
@@ -361,12 +408,15 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
     expanded = []
     for name in settings.fixed:
         if name == "stopping":
-            expanded += [n for n in nuisance_like if available[n][1] is Role.STOPPING]
+            # the stopping is trusted: its scales and its energy dependence
+            expanded += [n for n in nuisance_like
+                         if available[n][1] in (Role.STOPPING, Role.SLOPE)]
         elif name in nuisance_like:
             expanded.append(name)
         else:
             raise InputError(f"{name!r} is not a nuisance; nuisances: "
-                             f"{', '.join(nuisance_like)} (or 'stopping' for all)",
+                             f"{', '.join(nuisance_like)} (or 'stopping' for every "
+                             "stopping scale and slope)",
                              where=where("fixed"))
     spec.fixed = tuple(expanded)
 
@@ -405,7 +455,7 @@ def bind_fit(settings: FitSettings, columns, default_nuisance) -> FitSpec:
                                  "halfnormal", where=at)
         params.append(Parameter(name, unit, prior, role, is_default, target))
     if spec.profile == "nodes":
-        params += _node_parameters(spec, settings.nodes, layers, substrate, where)
+        params += _node_parameters(spec, settings.nodes, layers, where, resolution)
     for name, (unit, role, target, factory) in available.items():
         if role.is_sample:
             continue
@@ -456,42 +506,23 @@ def _composition_parameters(spec, name, layer_index, value, where):
     return out
 
 
-def _node_parameters(spec, nodes, layers, substrate, where):
-    for key in nodes:
-        if key not in _NODE_KEYS:
-            raise InputError(f"unknown key {key!r}; allowed: {', '.join(_NODE_KEYS)}",
-                             where=where(f"nodes.{key}"))
-    count = _number(nodes.get("count", 20), "nodes.count", where, low=3, integer=True)
-    if count > 60:
-        raise InputError(f"must be at most 60, got {count}", where=where("nodes.count"))
-    thick_total = sum(L.areal_density_1e15 for L in layers if not L.substrate)
-    depth = nodes.get("depth_1e15", 1.5 * thick_total if substrate else thick_total)
-    depth = _number(depth, "nodes.depth_1e15", where, low=0, low_inclusive=False)
-    step_sd = _number(nodes.get("step_sd", 0.5), "nodes.step_sd", where, low=0,
-                      low_inclusive=False)
-    start_sd = _number(nodes.get("start_sd", 3.0), "nodes.start_sd", where, low=0,
-                       low_inclusive=False)
-    below = nodes.get("below", "hold" if substrate else "vacuum")
-    if below not in ("hold", "vacuum"):
-        raise InputError(f"must be 'hold' or 'vacuum', got {below!r}", where=where("nodes.below"))
-    names = nodes.get("species", list(spec.species))
-    if (not isinstance(names, list) or len(names) < 2
-            or any(s not in spec.species for s in names) or len(set(names)) != len(names)):
-        raise InputError(f"must list at least two distinct species from {list(spec.species)}, "
-                         f"got {names!r}", where=where("nodes.species"))
-    columns = [spec.species.index(s) for s in names]
-    spec.nodes = dict(count=count, depth_1e15=depth, step_sd=step_sd, start_sd=start_sd,
-                      below=below, columns=columns)
+def _node_parameters(spec, nodes, layers, where, resolution):
+    """The free-form profile's parameters: per species but the reference, the first node's
+    log-ratio (prior normal(0, start_sd)) and the steps (normal(0, step_sd))."""
+    spec.nodes = node_settings(nodes, species=spec.species, layers=layers, where=where,
+                               resolution=resolution)
+    count = spec.nodes["count"]
+    names = [spec.species[c] for c in spec.nodes["columns"]]
     ref = names[-1]
     out = []
     index = 0
     for s in names[:-1]:
         for k in range(count):
             if k == 0:
-                prior = make_prior("normal", 0.0, start_sd)
+                prior = make_prior("normal", 0.0, spec.nodes["start_sd"])
                 label = f"nodes.{s}.logratio0"
             else:
-                prior = make_prior("normal", 0.0, step_sd)
+                prior = make_prior("normal", 0.0, spec.nodes["step_sd"])
                 label = f"nodes.{s}.step{k}"
             out.append(Parameter(label, f"ln({s}/{ref})", prior, Role.NODE, True, index))
             index += 1

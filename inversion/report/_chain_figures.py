@@ -14,11 +14,12 @@ import numpy as np
 from matplotlib.ticker import LogFormatter
 
 from . import _style
+from ..fit._roles import NUISANCE_NAMES, NUISANCES, Role
 from ._data import unit_from_name
-from ._figures import _pick, resolve_result
+from ._figures import _pick, _stamp, resolve_result
 from ._style import figure_style
 
-__all__ = ["plot_corner", "plot_convergence", "autocorr_growth"]
+__all__ = ["plot_corner", "plot_convergence", "autocorr_growth", "corner_groups", "CORNER_GROUPS"]
 
 
 def _axis_label(name: str, unit: str) -> str:
@@ -26,19 +27,70 @@ def _axis_label(name: str, unit: str) -> str:
     return name if (not unit or unit_from_name(name)) else f"{name}\n[{unit}]"
 
 
-def _corner_selection(data, max_quantities):
-    """Columns and labels for the corner plot: parameters, then thicknesses and widths.
+#: the groups ``plot_corner(include=...)`` can add to the sample's quantities
+CORNER_GROUPS = ("nuisances", "shares")
 
-    A derived quantity identical, draw for draw, to one already chosen (a layer's areal density
-    stored again under /derived) is left out.
+#: nuisance parameters named with a prefix (one per element or background term)
+_NUISANCE_PREFIXES = tuple(k.name.split("{")[0] for k in NUISANCES if k.role.per_element) + \
+    (f"{Role.BACKGROUND.key}.",)
+
+
+def corner_groups(include) -> tuple[str, ...]:
+    """The groups of ``include`` (a sequence, or text like "nuisances,shares"), checked.
+
+    Raises
+    ------
+    ValueError
+        For a name outside :data:`CORNER_GROUPS`.
     """
-    columns, labels, kinds = [], [], []
+    if include is None:
+        return ()
+    items = include.split(",") if isinstance(include, str) else list(include)
+    names = [str(i).strip() for i in items if str(i).strip()]
+    unknown = [n for n in names if n not in CORNER_GROUPS]
+    if unknown:
+        raise ValueError(f"unknown corner group {unknown[0]!r}; allowed: "
+                         f"{', '.join(CORNER_GROUPS)}")
+    return tuple(g for g in CORNER_GROUPS if g in names)
+
+
+def _corner_group(q) -> str:
+    """Which corner group a quantity belongs to: "sample", "nuisances", "shares", "fractions"
+    or "" (never drawn, e.g. the totals per element)."""
+    name = q.name
+    if q.kind == "parameter":
+        if name in NUISANCE_NAMES or name.startswith(_NUISANCE_PREFIXES):
+            return "nuisances"
+        if f".{Role.SHARE.key}." in name:
+            return "shares"
+        return "sample"
+    if ".fraction." in name:
+        return "fractions"
+    if any(w in name.lower() for w in ("thickness", "width", "mixing")):
+        return "sample"
+    return ""
+
+
+def _corner_selection(data, max_quantities, include=()):
+    """Columns and labels for the corner plot: the sample's parameters, then its thicknesses
+    and widths, then the groups of ``include``.
+
+    At most ``max_quantities`` of the sample's quantities, up to half of them derived; the
+    groups asked for come whole.  "shares" draws each free composition as atom fractions
+    (the derived ``<layer>.fraction.<species>``), or as the sampled stick-breaking shares when
+    the file has no fractions.  A derived quantity identical, draw for draw, to one already
+    chosen (a layer's areal density stored again under /derived) is left out.
+    """
+    columns, labels, groups = [], [], []
     n = data.samples.shape[0]
-    for q in data.quantities:
-        if q.draws is None or q.draws.size != n:
-            continue
-        name = q.name.lower()
-        if q.kind == "derived" and not any(w in name for w in ("thickness", "width", "mixing")):
+    usable = [q for q in data.quantities if q.draws is not None and q.draws.size == n]
+    # atom fractions stand for the stick-breaking shares that make them
+    fractions = any(_corner_group(q) == "fractions" for q in usable)
+    for q in usable:
+        group = _corner_group(q)
+        if fractions and group in ("shares", "fractions"):
+            group = "shares" if group == "fractions" else ""
+        if not group:
             continue
         if not np.all(np.isfinite(q.draws)):
             continue
@@ -46,19 +98,26 @@ def _corner_selection(data, max_quantities):
             continue
         columns.append(q.draws)
         labels.append(_axis_label(q.name, q.unit))
-        kinds.append(q.kind)
-    # keep room for the derived thicknesses and widths when there are many parameters: the
-    # parameters come in the file's order (sample first, nuisances last)
-    n_derived = min(sum(k == "derived" for k in kinds), max_quantities // 2)
-    n_param = min(sum(k == "parameter" for k in kinds), max_quantities - n_derived)
-    keep = [i for i, k in enumerate(kinds) if k == "parameter"][:n_param]
-    keep += [i for i, k in enumerate(kinds) if k == "derived"][:max_quantities - len(keep)]
+        groups.append("derived" if group == "sample" and q.kind == "derived" else group)
+
+    def of(group):
+        return [i for i, g in enumerate(groups) if g == group]
+
+    # keep room for the derived thicknesses and widths when there are many parameters
+    n_derived = min(len(of("derived")), max_quantities // 2)
+    keep = of("sample")[:max_quantities - n_derived]
+    keep += of("derived")[:max_quantities - len(keep)]
+    chosen = corner_groups(include)
+    for group in ("shares", "nuisances"):  # the sample, its compositions, then the rest
+        if group in chosen:
+            keep += of(group)
     return [columns[i] for i in keep], [labels[i] for i in keep]
 
 
-def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bins=25,
-                colour=None, fig=None, figsize=None):
-    """Corner plot (one- and two-dimensional marginals) of the main quantities.
+def plot_corner(result=None, *, samples=None, labels=None, include=(), max_quantities=8,
+                bins=25, colour=None, stamp=True, fig=None, figsize=None):
+    """Corner plot (one- and two-dimensional marginals) of the sample's quantities, and of the
+    nuisances and compositions when asked.
 
     Drawn with the corner package (Foreman-Mackey, J. Open Source Softw. 1, 24, 2016).  Contours
     enclose 68 % and 95 % of the two-dimensional posterior mass; dashed lines mark the 16, 50 and
@@ -67,18 +126,28 @@ def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bin
     Parameters
     ----------
     result : str, pathlib.Path or ReportData, optional
-        A result file: its sampled parameters and the derived thicknesses and interface widths.
+        A result file: the sample's sampled parameters (areal densities, mixing widths, nodes)
+        and the derived thicknesses and interface widths.
     samples : array_like, shape (draws, quantities), optional
         Draws to plot instead of the result's.
     labels : sequence of str, optional
         Axis labels, one per column of ``samples``.
+    include : sequence of str or str, optional
+        Groups drawn after the sample's quantities, from a result: "nuisances" (fluence,
+        calibration, resolution, stopping scales, background) and "shares" (each free
+        composition's atom fractions, or its stick-breaking shares when the file has no
+        fractions); also as text, "nuisances,shares".  Default: none.
     max_quantities : int, optional
-        At most this many quantities are drawn; from a result, up to half of them are the
-        derived thicknesses and widths, the rest the first parameters in the file's order.
+        At most this many of the sample's quantities (up to half of them the derived
+        thicknesses and widths, the rest the first parameters in the file's order); the groups
+        of ``include`` come whole on top.  With ``samples``, at most this many columns.
     bins : int, optional
         Histogram bins per axis.
     colour : str, optional
         Colour of the histograms and contours.
+    stamp : bool, optional
+        Stamp the figure when the result says the run did not converge or its model was
+        rejected.
     fig : matplotlib.figure.Figure, optional
         A figure from an earlier call, to overplot.
     figsize : tuple of float, optional
@@ -91,16 +160,19 @@ def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bin
     import corner
 
     data = resolve_result(result)
+    groups = corner_groups(include)
     if samples is None:
         if data is None:
             raise ValueError("plot_corner needs a result or samples")
-        columns, auto_labels = _corner_selection(data, max_quantities)
+        columns, auto_labels = _corner_selection(data, max_quantities, groups)
         samples = np.column_stack(columns)
         labels = auto_labels if labels is None else labels
-    samples = np.asarray(samples, dtype=float)
-    if samples.ndim == 1:
-        samples = samples[:, None]
-    samples = samples[:, :max_quantities]
+        samples = np.asarray(samples, dtype=float)
+    else:
+        samples = np.asarray(samples, dtype=float)
+        if samples.ndim == 1:
+            samples = samples[:, None]
+        samples = samples[:, :max_quantities]
     if labels is not None:
         labels = list(labels)[:samples.shape[1]]
         if len(labels) != samples.shape[1]:
@@ -130,6 +202,8 @@ def plot_corner(result=None, *, samples=None, labels=None, max_quantities=8, bin
                              "dashed: 16, 50, 84 % quantiles\n"
                              "titles: median and 68 % interval",
                  ha="right", va="top", fontsize=8, color="#444444")
+        if stamp:
+            _stamp(fig, data, None)
     return fig
 
 
@@ -166,7 +240,7 @@ def autocorr_growth(chain, *, n_points=12, min_steps=20):
 
 
 def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_traces=4,
-                     n_points=12, fig=None, figsize=(8.5, 5.2)):
+                     n_points=12, stamp=True, fig=None, figsize=(8.5, 5.2)):
     """Walker traces of the slowest parameters and the autocorrelation time against length.
 
     The right panel shows the estimate of the integrated autocorrelation time on the first N
@@ -189,6 +263,9 @@ def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_t
         How many parameters get a trace panel (those with the longest autocorrelation times).
     n_points : int, optional
         Number of prefix lengths for the autocorrelation curve.
+    stamp : bool, optional
+        Stamp the figure when the result says the run did not converge or its model was
+        rejected.
     fig : matplotlib.figure.Figure, optional
         An empty figure to draw into.
     figsize : tuple of float, optional
@@ -265,10 +342,8 @@ def plot_convergence(result=None, *, chain=None, names=None, discard=None, max_t
         axt.set_ylabel("autocorrelation time estimate (steps)")
         axt.set_title("autocorrelation time on the first N steps", fontsize=9.5)
         axt.legend(loc="lower right", fontsize=7.5)
-        if data is not None and data.converged is False:
-            fig.suptitle("NOT CONVERGED: the chain is shorter than the file's convergence rule "
-                         "asks; see summary.md", color=_style.PALETTE["vermillion"],
-                         fontsize=10.5, fontweight="bold", y=1.02)
         if not math.isfinite(float(np.max(tau))):
             axt.text(0.5, 0.5, "estimate undefined", transform=axt.transAxes, ha="center")
+        if stamp:
+            _stamp(fig, data, None)
     return fig

@@ -22,7 +22,7 @@ import numpy as np
 from forward import InputError
 
 from ..results._result import Result, read_result
-from ..results._schema import DIAGNOSTICS, QUANTILES, SAMPLES, SPECTRUM, STATS
+from ..results._schema import DIAGNOSTICS, PROFILE, QUANTILES, SAMPLES, SPECTRUM, STATS
 from ..results._summary import summarise
 
 __all__ = ["ReportData", "Quantity", "read_report_data", "report_data", "summarise_draws",
@@ -99,6 +99,12 @@ class ReportData:
     #: signals closer than the resolution, non-Rutherford onsets, stopping above its validated
     #: range, a calibration accepted deliberately, the readers' warnings
     input_warnings: list = field(default_factory=list)
+    # read by _figure_inputs() below, for the figures
+    profile_model: str = ""  # "layers", "nodes" or "" (the file does not say)
+    node_depth_1e15: np.ndarray | None = None  # depths of the free-form profile's nodes
+    model_rejected: bool | None = None  # the posterior predictive check's verdict, if any
+    ppc_p_value: float | None = None
+    ppc_ranges: np.ndarray | None = None  # (ranges, 3) int: first, last channel, sign
 
     def quantity(self, name: str, kind: str | None = None) -> Quantity:
         """The first :class:`Quantity` called ``name`` (of ``kind``, if given); KeyError if none."""
@@ -267,7 +273,7 @@ def report_data(result: Result) -> ReportData:
     if "depth_nm" in prof:
         data.depth_nm = np.asarray(prof["depth_nm"], dtype=float)
     for key, value in prof.items():
-        if key in ("depth", "depth_nm") or "/" in key:
+        if key in ("depth", "depth_nm", _NODE_DEPTH) or "/" in key:
             continue
         arr = np.asarray(value, dtype=float)
         if key.endswith("_map"):
@@ -300,6 +306,7 @@ def report_data(result: Result) -> ReportData:
         data.chain = result.chain
         data.log_prob = result.log_prob
 
+    _figure_inputs(data, result)
     if DIAGNOSTICS in result.parts:
         diag = dict(result.diagnostics)
         data.diagnostics = diag
@@ -315,6 +322,32 @@ def report_data(result: Result) -> ReportData:
             if ess is not None:
                 q.stats["effective_sample_size"] = float(ess[i])
     return data
+
+
+#: names the figures read beyond the bands (README, "Result file"); optional, absent from older
+#: files: ``/profile`` attribute ``model``, ``/profile/node_depth``, ``/diagnostics``
+#: attributes ``model_rejected``, ``ppc_p_value`` and dataset ``ppc_ranges``
+_PROFILE_MODEL, _NODE_DEPTH = "model", "node_depth"
+_MODEL_REJECTED, _PPC_P_VALUE, _PPC_RANGES = "model_rejected", "ppc_p_value", "ppc_ranges"
+
+
+def _figure_inputs(data: ReportData, result: Result) -> None:
+    """What only the figures read: the profile model and its node depths, and the posterior
+    predictive check (verdict, p-value, the channel ranges where residuals run one way).
+    Every part is optional; a file without it leaves the field empty."""
+    model = result.group_attrs.get(PROFILE, {}).get(_PROFILE_MODEL)
+    data.profile_model = _text(model) if model is not None else ""
+    if _NODE_DEPTH in result.profile:
+        data.node_depth_1e15 = np.asarray(result.profile[_NODE_DEPTH], dtype=float).ravel()
+    diag = result.diagnostics
+    if _MODEL_REJECTED in diag:
+        data.model_rejected = bool(np.asarray(diag[_MODEL_REJECTED]).any())
+    if _PPC_P_VALUE in diag:
+        data.ppc_p_value = float(np.asarray(diag[_PPC_P_VALUE], dtype=float).ravel()[0])
+    if _PPC_RANGES in diag:
+        ranges = np.asarray(diag[_PPC_RANGES], dtype=float)
+        data.ppc_ranges = ranges.reshape(-1, 3).astype(int) if ranges.size else \
+            np.zeros((0, 3), dtype=int)
 
 
 def _calibration(data: ReportData, result: Result) -> tuple[dict, str]:

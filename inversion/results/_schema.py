@@ -24,8 +24,10 @@ __all__ = ["FORMAT_VERSION", "QUANTILES", "STATS", "INTERVAL_NOTE", "MCMC", "FIN
            "SERIES_ARRHENIUS", "SERIES_COMPARISON", "SERIES_COMPARISON_STATS"]
 
 #: written as the root attribute ``format_version`` of both kinds of file; a file without it
-#: is version 1 (same layout, written before the attribute existed)
-FORMAT_VERSION = 2
+#: is version 1 (same layout, written before the attribute existed).  Version 3: the profile
+#: bands lie on a shared depth grid of points (``/profile/depth``), no longer on slice centres;
+#: ``/diagnostics`` gains the predictive check, R-hat and the start searches.
+FORMAT_VERSION = 3
 
 #: quantiles (fractions) of every band and predictive spectrum: 2.5, 16, 50, 84, 97.5 %
 QUANTILES = (0.025, 0.16, 0.5, 0.84, 0.975)
@@ -63,8 +65,10 @@ DATASETS = {
     LOG_POSTERIOR: ("natural log", None),
     POSTERIOR_PRIORS: (None, None),
     "derived/{name}": (None, None),           # unit and note given per quantity
-    "profile/depth": ("1e15 atoms/cm2", "slice centres"),
-    "profile/depth_nm": ("nm", "slice centres, converted with the run file's layer densities"),
+    "profile/depth": ("1e15 atoms/cm2", "points of the shared depth grid of the bands"),
+    "profile/depth_nm": ("nm", "the same points, converted with the run file's layer "
+                               "densities"),
+    "profile/node_depth": ("1e15 atoms/cm2", "depths of the free-form profile's nodes"),
     "profile/{species}": ("atom fraction", None),
     "profile/{species}_map": ("atom fraction", "highest-posterior draw"),
     "spectrum/channel": (None, None),
@@ -78,6 +82,16 @@ DATASETS = {
     "diagnostics/autocorr_time": ("steps", None),
     "diagnostics/acceptance": (None, "acceptance fraction per walker"),
     "diagnostics/ess": (None, "effective sample size: steps x walkers / tau"),
+    "diagnostics/rhat": (None, "rank-normalised split R-hat per parameter, every walker a "
+                               "chain (Vehtari et al. 2021); converged needs <= 1.01"),
+    "diagnostics/starts": (None, "independent start searches, one row each: log-posterior, "
+                                 "then the parameters"),
+    "diagnostics/ppc_deviance": (None, "Poisson deviance per posterior draw: observed, "
+                                       "replicated (Gelman, Meng & Stern 1996)"),
+    "diagnostics/ppc_blocks": (None, "window blocks of about one FWHM: first channel, last "
+                                     "channel, standardised residual sum z"),
+    "diagnostics/ppc_ranges": (None, "channel ranges where the residuals run systematically: "
+                                     "first, last, sign (+1: data above the model)"),
 }
 
 

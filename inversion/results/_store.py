@@ -367,6 +367,15 @@ def read_head(path) -> tuple[dict, set]:
         raise unreadable(exc, path) from exc
 
 
+def read_attrs(path, group: str = "/") -> dict:
+    """The attributes of one group ({} when the group is absent)."""
+    try:
+        with open_for_reading(path) as f:
+            return {k: _plain(v) for k, v in f[group].attrs.items()} if group in f else {}
+    except HDF5_ERRORS as exc:
+        raise unreadable(exc, path) from exc
+
+
 def read_mcmc_head(path) -> tuple[dict, dict | None]:
     """Root attributes and the ``/mcmc`` attributes (None without a chain) of a result file,
     for resuming it."""

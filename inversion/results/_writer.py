@@ -17,14 +17,14 @@ import numpy as np
 from forward import InputError
 
 from ._backend import SafeHDFBackend
-from ._schema import (DERIVED, DIAGNOSTICS, FORMAT_VERSION, INTERVAL_NOTE, LOG_POSTERIOR, MCMC,
-                      POSTERIOR_PRIORS, PROFILE, QUANTILES, SAMPLES, SPECTRUM, START, SUMMARY,
-                      attrs_of)
-from ._store import (HDF5_ERRORS, damaged_message, has_same_input, now_text, read_mcmc_head,
-                     set_attrs, write_groups, write_input)
+from ._schema import (DATASETS, DERIVED, DIAGNOSTICS, FORMAT_VERSION, INTERVAL_NOTE,
+                      LOG_POSTERIOR, MCMC, POSTERIOR_PRIORS, PROFILE, QUANTILES, SAMPLES,
+                      SPECTRUM, START, SUMMARY, attrs_of)
+from ._store import (HDF5_ERRORS, damaged_message, has_same_input, now_text, read_attrs,
+                     read_mcmc_head, set_attrs, write_groups, write_input)
 from ._summary import summarise
 
-__all__ = ["create_result", "open_for_resume", "write_start", "write_posterior",
+__all__ = ["create_result", "open_for_resume", "write_start", "read_starts", "write_posterior",
            "set_status", "open_chain"]
 
 
@@ -106,10 +106,27 @@ def open_for_resume(path, *, run_text: str, counts, n_walkers: int, ndim: int,
     return backend, None if seed is None else int(seed)
 
 
-def write_start(path, theta, log_posterior: float, names) -> None:
-    """Record the start point of the chain (``/start`` attributes)."""
+def write_start(path, theta, log_posterior: float, names, *, searches=None,
+                search_log_posterior=None, method: str = "") -> None:
+    """Record the start of the chain (``/start`` attributes): the best start point, and the
+    optimum of every independent start search."""
+    extra = {}
+    if searches is not None:
+        extra = {"searches": np.asarray(searches, dtype=float),
+                 "search_log_posterior": np.asarray(search_log_posterior, dtype=float)}
     set_attrs(path, START, theta=theta, log_posterior=log_posterior, names=names,
-              method="differential evolution in prior bounds, Nelder-Mead polish")
+              method=method or "differential evolution in prior bounds, Nelder-Mead polish",
+              **extra)
+
+
+def read_starts(path):
+    """``(log_posteriors, thetas)`` of the start searches stored in ``/start`` (None when the
+    file predates them)."""
+    attrs = read_attrs(path, START)
+    if "searches" not in attrs:
+        return None
+    return (np.asarray(attrs["search_log_posterior"], dtype=float),
+            np.asarray(attrs["searches"], dtype=float))
 
 
 def set_status(path, **attrs) -> None:
@@ -171,9 +188,13 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
         for i, (name, unit) in enumerate(zip(derived_names, derived_units))}
 
     profile = {"depth": (depth_1e15, attrs_of("profile/depth")),
-               "@attrs": {"quantiles": QUANTILES, "draws": bands.draws}}
+               "@attrs": {"quantiles": QUANTILES, "draws": bands.draws,
+                          "model": spec.profile}}
     if depth_nm is not None:
         profile["depth_nm"] = (depth_nm, attrs_of("profile/depth_nm"))
+    if spec.profile == "nodes":
+        profile["node_depth"] = (np.asarray(spec.nodes["node_depth_1e15"], dtype=float),
+                                 attrs_of("profile/node_depth"))
     spectrum = {"channel": np.arange(counts.size),
                 "counts": (counts, attrs_of("spectrum/counts")),
                 "window": (window, attrs_of("spectrum/window")),
@@ -192,10 +213,13 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
     groups[SPECTRUM] = spectrum
 
     d = dict(diagnostics)
-    arrays = {"autocorr_time": attrs_of("diagnostics/autocorr_time", names=names),
-              "acceptance": attrs_of("diagnostics/acceptance"),
-              "ess": attrs_of("diagnostics/ess", names=names)}
-    groups[DIAGNOSTICS] = {key: (d.pop(key), attrs) for key, attrs in arrays.items()}
+    per_parameter = {"autocorr_time", "ess", "rhat"}
+    groups[DIAGNOSTICS] = {}
+    for key in list(d):
+        # arrays with a schema entry are datasets; everything else is an attribute
+        if f"diagnostics/{key}" in DATASETS and isinstance(d[key], np.ndarray):
+            extra = {"names": names} if key in per_parameter else {}
+            groups[DIAGNOSTICS][key] = (d.pop(key), attrs_of(f"diagnostics/{key}", **extra))
     groups[DIAGNOSTICS]["@attrs"] = d
     write_groups(path, groups)
 

@@ -1,6 +1,5 @@
 """What a finished chain says about itself, by name: parameters piling up at a prior bound,
-walkers stuck apart from the others, nuisances far from their priors; and the advice of a
-chain that did not converge.
+walkers stuck apart from the others, nuisances far from their priors.
 
 :func:`posterior_flags` is called once a run has sampled (``inversion._api.finalise``); its
 messages join the convergence warnings in ``/diagnostics`` (attribute ``warnings``), are
@@ -13,11 +12,9 @@ import math
 
 import numpy as np
 
-from .._inputs import MAX_STEPS
 
-__all__ = ["posterior_flags", "not_converged_text", "PosteriorFlagWarning", "PILE_FRACTION",
-           "PILE_SPAN", "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_NEVER", "STUCK_SD",
-           "STUCK_LOG_POSTERIOR",
+__all__ = ["posterior_flags", "PosteriorFlagWarning", "PILE_FRACTION", "PILE_SPAN",
+           "NUISANCE_SD", "STUCK_ACCEPTANCE", "STUCK_NEVER", "STUCK_SD", "STUCK_LOG_POSTERIOR",
            "STUCK_MIN_STEPS"]
 
 #: A parameter piles at a bound when more than this fraction of the draws ...
@@ -183,27 +180,3 @@ def posterior_flags(spec, chain, log_prob, acceptance, samples) -> list:
             + _nuisance_flags(spec, samples))
 
 
-def not_converged_text(status, tau_multiple: float, check_every: int) -> str:
-    """The warning for a chain shorter than ``tau_multiple`` autocorrelation times, with the
-    steps it needs at least.
-
-    The autocorrelation time estimated from a chain shorter than ``tau_multiple`` times it is
-    a lower bound (the estimate grows as the chain does), so the steps needed are given as
-    "at least", and the suggested ``--max-steps`` is at least twice the chain so far, on the
-    ``check_every`` grid where convergence is checked.
-    """
-    tau = np.asarray(status.tau, dtype=float)
-    steps = int(status.steps)
-    if not np.any(np.isfinite(tau)):
-        needed = max(2 * steps, check_every)
-        what = "the autocorrelation time could not be estimated yet"
-    else:
-        tau_max = float(np.nanmax(tau))
-        needed = tau_multiple * tau_max
-        what = (f"{tau_multiple:g} x the longest autocorrelation time estimated so far "
-                f"({tau_max:.1f} steps) asks for at least {math.ceil(needed)} steps")
-    suggest = max(needed, 2 * steps, steps + 1)
-    suggest = min(int(math.ceil(suggest / check_every) * check_every), MAX_STEPS)
-    return (f"NOT CONVERGED: {steps} steps, but {what}, and an estimate from a chain this "
-            "short is a lower bound (it grows as the chain does); intervals may be too narrow "
-            f"or misplaced. Continue with --resume --max-steps {suggest} (or more)")

@@ -1,4 +1,5 @@
-"""The sampler: a MAP start, a ball of walkers, emcee until the chain is long enough.
+"""The sampler: independent start searches, walker groups spread over their regions, emcee
+until the chain is long enough and the groups agree.
 
 It owns the walkers, the starting points (:mod:`inversion.sample._start`), the moves, the
 worker pool (:mod:`inversion.sample._workers`) and the backend; the physics and the statistics
@@ -14,8 +15,12 @@ import signal
 import emcee
 import numpy as np
 
-from ._convergence import SamplerStatus, autocorr_summary, is_converged
-from ._start import START_MAXITER, START_POPSIZE, find_start, prior_bounds, walker_ball
+from ._convergence import (WALKER_GROUPS, SamplerStatus, autocorr_summary, group_rhat,
+                           is_converged)
+from ._start import (START_MAXITER, START_POPSIZE, find_start, find_starts, laplace_covariance,
+                     prior_bounds, starts_disagree, walker_ball, walker_groups)
+from ._moves import SubspaceDEMove
+from ._polish import gradient_polish
 from ._workers import worker_log_posterior, worker_pool
 
 __all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt"]
@@ -25,11 +30,14 @@ def make_moves(kind: str):
     """emcee moves by name: ``"stretch"`` (affine-invariant stretch move, Goodman & Weare 2010,
     Comm. App. Math. Comp. Sci. 5, 65) or ``"differential"`` (differential evolution moves,
     ter Braak 2006, Stat. Comput. 16, 239, mixed 4:1 with the snooker update, ter Braak &
-    Vrugt 2008, Stat. Comput. 18, 435)."""
+    Vrugt 2008, Stat. Comput. 18, 435) or ``"subspace"`` (differential evolution in random
+    subspaces, :class:`inversion.sample._moves.SubspaceDEMove`, with the same snooker share)."""
     if kind == "stretch":
         return emcee.moves.StretchMove()
     if kind == "differential":
         return [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+    if kind == "subspace":
+        return [(SubspaceDEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
     raise ValueError(f"unknown moves {kind!r}")
 
 
@@ -71,8 +79,8 @@ class Sampler:
 
     # ----- start -----
     def find_start(self, pool=None):
-        """Differential evolution inside the prior bounds, then a Nelder-Mead polish
-        (:func:`inversion.sample._start.find_start`).
+        """One start search: differential evolution inside the prior bounds, then a
+        Nelder-Mead polish (:func:`inversion.sample._start.find_start`).
 
         Returns
         -------
@@ -83,9 +91,36 @@ class Sampler:
                           popsize=self.START_POPSIZE, maxiter=self.START_MAXITER)
 
     def initial_walkers(self, theta):
-        """A small ball around ``theta``, every walker inside the prior support."""
+        """A small ball around ``theta`` (for tests and studies)."""
         return walker_ball(self.objective, theta, self.bounds, n_walkers=self.n_walkers,
                            seed=self.seed + 1)
+
+    def start(self, pool=None):
+        """Independent start searches and walker groups spread over their regions.
+
+        Returns
+        -------
+        walkers : ndarray (n_walkers, ndim)
+        thetas, log_posteriors : ndarray
+            The searches' optima.
+        warning : str or None
+            Said when the searches disagree.
+        """
+        thetas, logps = find_starts(self.objective, self.bounds, seed=self.seed, pool=pool,
+                                    searches=WALKER_GROUPS, popsize=self.START_POPSIZE,
+                                    maxiter=self.START_MAXITER)
+        if getattr(self.objective.spec, "profile", "layers") == "nodes":
+            # tens of node parameters: the searches stop short of the mode; a gradient
+            # polish puts each group's walkers where the posterior is (sample/_polish.py)
+            for g in range(thetas.shape[0]):
+                thetas[g], logps[g] = gradient_polish(self.objective, thetas[g], self.bounds,
+                                                      pool=pool)
+        covs = [laplace_covariance(self.objective, th, self.bounds) for th in thetas]
+        best = int(np.argmax(logps))
+        warning = starts_disagree(thetas, logps, covs[best], self.objective.spec.names)
+        walkers = walker_groups(self.objective, thetas, covs, self.bounds,
+                                n_walkers=self.n_walkers, seed=self.seed + 1)
+        return walkers, thetas, logps, warning
 
     # ----- sampling -----
     def run(self, *, max_steps, tau_multiple=50.0, check_every=200, progress=None,
@@ -109,7 +144,8 @@ class Sampler:
         should_stop : callable, optional
             Returns True to stop after the current step (Ctrl-C).
         on_start : callable, optional
-            ``on_start(theta_map, log_posterior_map)`` after a fresh start search.
+            ``on_start(thetas, log_posteriors, warning)`` after fresh start searches (their
+            optima, and the message when they disagree).
 
         Returns
         -------
@@ -121,11 +157,14 @@ class Sampler:
                                acceptance=np.zeros(self.n_walkers))
         with worker_pool(self.objective, self.workers) as pool:
             if done == 0:
-                theta, logp = self.find_start(pool)
-                status.map_theta, status.map_log_posterior = theta, logp
+                walkers, thetas, logps, warning = self.start(pool)
+                best = int(np.argmax(logps))
+                status.map_theta, status.map_log_posterior = thetas[best], float(logps[best])
+                if warning:
+                    status.warnings.append(warning)
                 if on_start is not None:
-                    on_start(theta, logp)
-                start = emcee.State(self.initial_walkers(theta),
+                    on_start(thetas, logps, warning)
+                start = emcee.State(walkers,
                                     random_state=np.random.RandomState(self.seed).get_state())
             else:
                 # positions, log-posteriors and the random state of the last stored step
@@ -134,8 +173,7 @@ class Sampler:
             sampler = emcee.EnsembleSampler(self.n_walkers, self.ndim, fn, pool=pool,
                                             backend=self.backend, moves=make_moves(self.moves))
             if done > 0:
-                converged, tau = self._check(sampler, tau_multiple)
-                status.tau = tau
+                converged, status.tau, status.rhat = self._check(sampler, tau_multiple)
                 if converged and done % check_every == 0:
                     status.converged = True
             remaining = max_steps - done
@@ -145,7 +183,7 @@ class Sampler:
                     if progress is not None:
                         progress(step)
                     if step % check_every == 0 or step == max_steps:
-                        converged, status.tau = self._check(sampler, tau_multiple)
+                        converged, status.tau, status.rhat = self._check(sampler, tau_multiple)
                         if converged and step % check_every == 0:
                             status.converged = True
                             break
@@ -155,15 +193,21 @@ class Sampler:
             status.steps = int(self.backend.iteration)
             status.acceptance = (np.asarray(self.backend.accepted) / max(status.steps, 1))
             if status.steps:
-                status.tau = autocorr_summary(self.backend.get_chain())
+                chain = self.backend.get_chain()
+                status.tau = autocorr_summary(chain)
+                status.rhat = group_rhat(chain, status.tau)
         if not status.converged and not status.interrupted:
-            status.converged = (is_converged(status.tau, status.steps, tau_multiple)
+            status.converged = (is_converged(status.tau, status.steps, tau_multiple,
+                                             status.rhat)
                                 and status.steps % check_every == 0)
         return status
 
     def _check(self, sampler, tau_multiple):
-        tau = autocorr_summary(sampler.get_chain())
-        return is_converged(tau, sampler.iteration, tau_multiple), tau
+        """(converged, tau, rhat) of the chain so far."""
+        chain = sampler.get_chain()
+        tau = autocorr_summary(chain)
+        rhat = group_rhat(chain, tau)
+        return is_converged(tau, sampler.iteration, tau_multiple, rhat), tau, rhat
 
 
 @contextlib.contextmanager

@@ -43,10 +43,15 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from numba import njit
 from scipy.special import ndtr
 
-__all__ = ["half_boxes", "ramp_integral", "slice_amounts", "stack_table",
-           "refinement_points", "REFINEMENT_U"]
+__all__ = ["half_boxes", "ramp_integral", "slice_amounts", "slice_amounts_numpy",
+           "stack_table", "refinement_points", "point_composition", "REFINEMENT_U"]
+
+#: beyond this many widths from its corner a ramp integral is its straight part (the smooth
+#: part is below 1e-16 of the width there)
+_SMOOTH_REACH = 9.0
 
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
@@ -122,12 +127,9 @@ def _antiderivative(edges, top, bottom, width):
     return h
 
 
-def slice_amounts(edges, areal_density_1e15, mixing_1e15, substrate: bool):
-    """Atoms of each layer in each slice, shape ``(n_slices, n_layers)``.
-
-    ``n_layers`` counts the substrate when there is one.  Slices are ``[edges_j, edges_j+1]``
-    in auxiliary depth, ``edges[0] = 0``.
-    """
+def slice_amounts_numpy(edges, areal_density_1e15, mixing_1e15, substrate: bool):
+    """Atoms of each layer in each slice, shape ``(n_slices, n_layers)``: the plain numpy
+    version of :func:`slice_amounts` (the tests hold the two together)."""
     top, bottom, width, layer = half_boxes(areal_density_1e15, mixing_1e15, substrate)
     h = _antiderivative(edges, top, bottom, width)
     per_half = np.diff(h, axis=1).T  # (slices, halves)
@@ -137,6 +139,56 @@ def slice_amounts(edges, areal_density_1e15, mixing_1e15, substrate: bool):
     # amounts are differences of a monotone function: never below zero but for rounding
     np.maximum(out, 0.0, out=out)
     return out
+
+
+@njit(cache=True)
+def _ramp(x, w):
+    """``R(x, w)`` of :func:`ramp_integral` for one value (compiled)."""
+    ramp = x if x > 0.0 else 0.0
+    if w <= 0.0:
+        return ramp
+    u = -abs(x) / w
+    if u < -_SMOOTH_REACH:
+        return ramp
+    return ramp + w * (u * 0.5 * math.erfc(-u / math.sqrt(2.0))
+                       + math.exp(-0.5 * u * u) / math.sqrt(2.0 * math.pi))
+
+
+@njit(cache=True)
+def _amounts_kernel(edges, top, bottom, width, layer, n_layers):
+    n = edges.size - 1
+    out = np.zeros((n, n_layers))
+    for h in range(top.size):
+        a, b, w = top[h], bottom[h], width[h]
+        finite = b < np.inf
+        k = layer[h]
+        prev = 0.0
+        for j in range(edges.size):
+            e = edges[j]
+            value = _ramp(e - a, w) - _ramp(-e - a, w)
+            if finite:
+                value -= _ramp(e - b, w) - _ramp(-e - b, w)
+            if j > 0:
+                out[j - 1, k] += value - prev
+            prev = value
+    for j in range(n):
+        for k in range(n_layers):
+            if out[j, k] < 0.0:
+                out[j, k] = 0.0
+    return out
+
+
+def slice_amounts(edges, areal_density_1e15, mixing_1e15, substrate: bool):
+    """Atoms of each layer in each slice, shape ``(n_slices, n_layers)``.
+
+    ``n_layers`` counts the substrate when there is one.  Slices are ``[edges_j, edges_j+1]``
+    in auxiliary depth, ``edges[0] = 0``.  Compiled (numba); :func:`slice_amounts_numpy` is
+    the same in plain numpy.
+    """
+    top, bottom, width, layer = half_boxes(areal_density_1e15, mixing_1e15, substrate)
+    n_layers = int(layer.max()) + 1 if layer.size else 0
+    return _amounts_kernel(np.ascontiguousarray(edges, dtype=float), top, bottom, width,
+                           layer.astype(np.int64), n_layers)
 
 
 def stack_table(edges, areal_density_1e15, mixing_1e15, compositions, substrate: bool):
@@ -178,3 +230,35 @@ def refinement_points(areal_density_1e15, mixing_1e15, refine):
     w = np.asarray(mixing_1e15, dtype=float)
     pts = [z[k] + w[k] * REFINEMENT_U for k in range(z.size) if refine[k]]
     return np.concatenate(pts) if pts else np.zeros(0)
+
+
+def _cdf(x, w):
+    """``Phi(x / w)``; for ``w = 0`` the sharp step (1/2 exactly at 0)."""
+    safe = np.where(w > 0, w, 1.0)
+    sharp = np.where(x > 0, 1.0, np.where(x < 0, 0.0, 0.5))
+    return np.where(w > 0, ndtr(x / safe), sharp)
+
+
+def point_composition(z, areal_density_1e15, mixing_1e15, compositions, substrate: bool):
+    """Composition and atom density at auxiliary depths ``z`` (see module notes).
+
+    Returns
+    -------
+    fractions : numpy.ndarray, shape (n_points, n_species)
+        ``sum_h B_h(z) c_h / D(z)``; zeros where ``D = 0`` (below a sample without substrate).
+    density : numpy.ndarray, shape (n_points,)
+        ``D(z)``, atoms per unit of auxiliary depth (1 inside thick layers).
+    """
+    top, bottom, width, layer = half_boxes(areal_density_1e15, mixing_1e15, substrate)
+    zz = np.asarray(z, dtype=float)[None, :]
+    a, w = top[:, None], width[:, None]
+    finite = np.isfinite(bottom)[:, None]
+    b = np.where(finite, bottom[:, None], 0.0)
+    dens = _cdf(zz - a, w) + _cdf(-zz - a, w)
+    dens = dens - np.where(finite, _cdf(zz - b, w) + _cdf(-zz - b, w), 0.0)
+    dens = np.maximum(dens, 0.0)  # (halves, points)
+    comps = np.asarray(compositions, dtype=float)[layer]  # (halves, species)
+    total = dens.sum(axis=0)
+    atoms = dens.T @ comps
+    safe = np.where(total > 0, total, 1.0)
+    return np.where(total[:, None] > 1e-15, atoms / safe[:, None], 0.0), total
