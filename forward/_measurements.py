@@ -161,7 +161,7 @@ def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> Me
     for key in raw:
         if key in PER_MEASUREMENT_TABLES:
             raise InputError(f"[{key}] belongs to one measurement, but this run file has "
-                             "[[measurement]] tables; allowed: [measurement.{key}] inside each "
+                             f"[[measurement]] tables; allowed: [measurement.{key}] inside each "
                              "measurement (the top level holds title, [[layer]], [physics], "
                              "[fit])", where=f"{source}: {key}")
         if key not in _SHARED_KEYS:
