@@ -23,9 +23,11 @@ from .fit._bands import posterior_bands
 from .fit._predictive import PPC_ALPHA
 from .fit._derived import depth_nm
 from .fit._nodes import depth_resolution, describe_nodes
+from .fit._joint import JointObjective
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .fit._window import film_floor_channel
+from ._joint import load_joint, preflight_joint
 from ._inputs import (MAX_STEPS, PreflightWarning, check_seed, load_inputs, preflight_inputs,
                       replay_warnings)
 from .results._outputs import WriterLock, check_output, spectrum_file
@@ -39,6 +41,7 @@ from .sample._flags import PosteriorFlagWarning, posterior_flags
 from .sample._sampler import Sampler, stop_on_interrupt
 
 __all__ = ["invert", "invert_reporting", "read_result", "NotConvergedWarning", "prepare",
+           "prepare_joint",
            "finalise", "PROGRAM", "PosteriorFlagWarning", "PreflightWarning"]
 
 
@@ -265,11 +268,38 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
     return read_result(output)
 
 
+def prepare_joint(joint, *, likelihood=True, build_models=None):
+    """The joint objective of every measurement of a joint run.
+
+    Parameters
+    ----------
+    joint : inversion._joint.JointInputs
+        From :func:`inversion._joint.load_joint`.
+    likelihood : bool
+        False: posterior = prior.
+    build_models : list of callable, optional
+        One ``build_model`` per measurement (see :func:`prepare`).
+
+    Returns
+    -------
+    JointObjective
+    """
+    parts = []
+    builders = build_models or [None] * len(joint.runs)
+    for m, inputs, build in zip(joint.measurements.measurements, joint.inputs, builders):
+        try:
+            _, objective = prepare(inputs.run, inputs.spectrum, build_model=build,
+                                   likelihood=likelihood)
+        except InputError as exc:
+            raise InputError(f"measurement {m.name!r}: {exc.message}", where=exc.where) from None
+        parts.append(objective)
+    found = joint.measurements
+    return JointObjective(parts, found.names, [m.charge_group for m in found.measurements])
+
+
 def _joint_inputs(run, *, likelihood, accept_calibration):
     """``(first measurement's run, JointObjective, input warnings, {what: spectrum file})`` of
     a run file that names its spectra in ``[[measurement]]`` tables."""
-    from ._joint import load_joint, preflight_joint, prepare_joint
-
     found = run if hasattr(run, "measurements") else forward.load_measurements(
         getattr(run, "source", run))
     if not found.joint:

@@ -7,7 +7,7 @@ from __future__ import annotations
 import forward
 from forward import InputError
 
-from ._api import prepare
+from ._api import prepare, prepare_joint
 from ._inputs import load_inputs
 from .fit._spec import bind_fit, read_fit_settings
 
@@ -61,7 +61,7 @@ def _check_joint(found) -> "forward.Preflight":
     edges, its depth resolution per layer, its spectrum against its calibration), under a
     heading naming it, with each finding located in its measurement; then the joint ``[fit]``
     table checked as ``sondage invert`` would."""
-    from ._joint import load_joint, measurement_runs, prepare_joint
+    from ._joint import load_joint, measurement_runs
 
     runs = measurement_runs(found)  # the [fit] table's @-names, checked
     report = forward.Preflight(lines=[f"Run file {found.source}: {len(runs)} measurements of "

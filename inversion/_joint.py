@@ -3,8 +3,8 @@ naming its spectrum, read and checked once (:func:`load_joint`), and its objecti
 (:func:`prepare_joint`).
 
 Each measurement goes through exactly what a run of one spectrum goes through (reading with
-its warnings recorded, the pre-flight checks of ``sondage check``, the objective of
-:func:`inversion.prepare`); the objectives are then joined into one
+its warnings recorded, the pre-flight checks of ``sondage check``); their objectives are
+joined by :func:`inversion._api.prepare_joint` into one
 :class:`~inversion.fit._joint.JointObjective`.
 """
 
@@ -16,9 +16,9 @@ import forward
 from forward import InputError
 
 from ._inputs import load_inputs, preflight_inputs
-from .fit._joint import JointObjective, measurement_fit
+from .fit._joint import measurement_fit
 
-__all__ = ["JointInputs", "load_joint", "prepare_joint", "measurement_runs", "is_joint"]
+__all__ = ["JointInputs", "load_joint", "preflight_joint", "measurement_runs", "is_joint"]
 
 
 @dataclass
@@ -108,34 +108,3 @@ def preflight_joint(joint: JointInputs, *, accept_calibration: bool = False) -> 
             raise InputError(f"measurement {m.name!r}: {exc.message}", where=exc.where) from None
         out += [f"measurement {m.name!r}: {w}" for w in found]
     return out
-
-
-def prepare_joint(joint: JointInputs, *, likelihood=True, build_models=None):
-    """The joint objective of every measurement.
-
-    Parameters
-    ----------
-    joint : JointInputs
-    likelihood : bool
-        False: posterior = prior.
-    build_models : list of callable, optional
-        One ``build_model`` per measurement (see :func:`inversion.prepare`).
-
-    Returns
-    -------
-    JointObjective
-    """
-    from ._api import prepare
-
-    parts = []
-    builders = build_models or [None] * len(joint.runs)
-    for m, inputs, build in zip(joint.measurements.measurements, joint.inputs, builders):
-        try:
-            _, objective = prepare(inputs.run, inputs.spectrum, build_model=build,
-                                   likelihood=likelihood)
-        except InputError as exc:
-            raise InputError(f"measurement {m.name!r}: {exc.message}", where=exc.where) from None
-        parts.append(objective)
-    found = joint.measurements
-    return JointObjective(parts, found.names, [m.charge_group for m in found.measurements])
-

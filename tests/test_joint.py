@@ -17,7 +17,8 @@ import pytest
 import forward
 import inversion
 from forward import InputError
-from inversion._joint import load_joint, prepare_joint
+from inversion._api import prepare_joint
+from inversion._joint import load_joint
 from inversion.fit._joint import measurement_fit
 
 __all__: list[str] = []
@@ -172,6 +173,18 @@ def test_joint_log_likelihood_is_the_sum_of_the_single_spectrum_ones(world):
     # the prior is taken once over the joint parameters
     assert joint.log_prior(theta) == pytest.approx(
         sum(p.prior.logpdf(v) for p, v in zip(joint.spec.parameters, theta)), rel=1e-12)
+
+
+def test_worker_processes_hold_the_joint_objective(world):
+    # a worker unpickles the objective and builds every measurement's model once, at start
+    from inversion.sample._workers import worker_log_posterior, worker_pool
+
+    joint = prepare_joint(load_joint(world / "joint.toml"))
+    theta = np.array([310.0, 1.02, 0.99, 0.97, 1.03])
+    with worker_pool(joint, 2) as pool:
+        values = pool.map(worker_log_posterior, [theta, theta * 1.001])
+    assert values[0] == pytest.approx(joint.log_posterior(theta), rel=1e-12)
+    assert values[1] == pytest.approx(joint.log_posterior(theta * 1.001), rel=1e-12)
 
 
 def test_a_charge_group_shares_one_fluence(world, tmp_path):

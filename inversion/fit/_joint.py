@@ -193,6 +193,14 @@ class JointObjective:
         self.counts = np.concatenate([p.counts for p in self.parts])
         self.measured = np.concatenate([p.measured for p in self.parts])
 
+    @property
+    def model(self):
+        """Every measurement's forward model, built now (worker processes ask for this once,
+        when they start); the first measurement's is returned."""
+        for part in self.parts:
+            part.model
+        return self.parts[0].model
+
     # ----- what the sampler and the finishing steps ask of an objective -----
     def part_theta(self, theta, k: int) -> np.ndarray:
         """Measurement ``k``'s parameter vector (or rows of vectors)."""
