@@ -63,6 +63,7 @@ _EXPORTS = {
     "load_measurements": "._measurements",
     "parse_measurements": "._measurements",
     "resolve_spectrum": "._measurements",
+    "has_measurements": "._measurements",
     "Spectrum": "._spectrum_io",
     "read_spectrum": "._spectrum_io",
     "NonIntegerCountsWarning": "._spectrum_io",

@@ -34,6 +34,7 @@ from ._errors import InputError
 from ._runfile import _TOML_AT, _build, _kind
 
 __all__ = ["Measurement", "MeasurementSet", "load_measurements", "parse_measurements",
+           "has_measurements",
            "PER_MEASUREMENT_TABLES", "MEASUREMENT_KEYS"]
 
 #: the tables that belong to one spectrum (shared tables: title, layer, physics, fit)
@@ -133,6 +134,18 @@ def load_measurements(path) -> MeasurementSet:
     except UnicodeDecodeError:
         return _single(load_run(path))
     return parse_measurements(text, source=str(path), base_dir=p.resolve().parent)
+
+
+def has_measurements(path) -> bool:
+    """True for a run file with ``[[measurement]]`` tables (read as TOML only, no checks and
+    no warnings; a file that cannot be read is left to :func:`load_run`'s own message)."""
+    from ._spectrum_io import decode_text
+
+    try:
+        text, _ = decode_text(Path(path).read_bytes())
+        return "measurement" in tomllib.loads(text.removeprefix("\ufeff"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return False
 
 
 def _single(run) -> MeasurementSet:

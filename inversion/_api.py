@@ -300,12 +300,19 @@ def prepare_joint(joint, *, likelihood=True, build_models=None):
 def _joint_inputs(run, *, likelihood, accept_calibration):
     """``(first measurement's run, JointObjective, input warnings, {what: spectrum file})`` of
     a run file that names its spectra in ``[[measurement]]`` tables."""
-    found = run if hasattr(run, "measurements") else forward.load_measurements(
-        getattr(run, "source", run))
-    if not found.joint:
+    path = getattr(run, "source", run)
+    if hasattr(run, "measurements"):
+        found = run
+    elif isinstance(path, (str, Path)) and forward.has_measurements(path):
+        found = forward.load_measurements(path)
+    else:
+        found = None
+        if isinstance(path, (str, Path)) and not Path(path).is_file():
+            forward.load_run(path)  # its own message for a missing file or a folder
+    if found is None or not found.joint:
         raise InputError("no spectrum given, and the run file names none; allowed: a spectrum "
                          "argument (sondage invert RUN.toml SPECTRUM -o RESULT.h5), or "
-                         "[[measurement]] tables each naming its spectrum", where=found.source)
+                         "[[measurement]] tables each naming its spectrum", where=str(path))
     joint = load_joint(found)
     objective = prepare_joint(joint, likelihood=likelihood)
     input_warnings = [f"measurement {m.name!r}: {w.message}"

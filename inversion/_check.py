@@ -42,8 +42,8 @@ def check_files(run_file, spectrum_file=None) -> "forward.Preflight":
     :class:`forward.InputError`; the pre-flight errors are in the report
     (:meth:`forward.Preflight.error`).
     """
-    found = None if hasattr(run_file, "layers") else forward.load_measurements(run_file)
-    if found is not None and found.joint:
+    if not hasattr(run_file, "layers") and forward.has_measurements(run_file):
+        found = forward.load_measurements(run_file)
         if spectrum_file is not None:
             raise InputError("this run file names a spectrum in each of its [[measurement]] "
                              "tables; allowed: sondage check RUN.toml without SPECTRUM",

@@ -43,7 +43,7 @@ def is_joint(run) -> bool:
     """True for a run file (a path) with ``[[measurement]]`` tables."""
     if hasattr(run, "layers") or hasattr(run, "measurements"):
         return bool(getattr(run, "joint", False))
-    return forward.load_measurements(run).joint
+    return forward.has_measurements(run)
 
 
 def measurement_runs(measurements) -> list:
