@@ -27,6 +27,7 @@ import numpy as np
 
 from forward import InputError
 
+from ._objective import Objective, log_prior_of
 from ._roles import Role
 
 __all__ = ["JointObjective", "measurement_fit", "PER_MEASUREMENT_ROLES",
@@ -208,13 +209,7 @@ class JointObjective:
 
     def log_prior(self, theta) -> float:
         """Sum of the joint parameters' log prior densities (each parameter once)."""
-        total = 0.0
-        for value, p in zip(theta, self.spec.parameters):
-            lp = p.prior.logpdf(value)
-            if lp == -math.inf or lp != lp:
-                return -np.inf
-            total += float(lp)
-        return total
+        return log_prior_of(self.spec.parameters, theta)
 
     def log_likelihood(self, theta) -> float:
         """Sum of each spectrum's Poisson log-likelihood over its own window."""
@@ -227,12 +222,9 @@ class JointObjective:
             total += value
         return total
 
-    def log_posterior(self, theta) -> float:
-        """log_prior + log_likelihood; -inf before any model runs when outside the prior."""
-        lp = self.log_prior(theta)
-        if not np.isfinite(lp):
-            return -np.inf
-        return lp + self.log_likelihood(theta)
+    #: log_prior + log_likelihood, -inf before any model runs when outside the prior (the
+    #: single objective's own method, on these two)
+    log_posterior = Objective.log_posterior
 
     __call__ = log_posterior
 

@@ -345,14 +345,7 @@ def _measurement_data(data: ReportData, result: Result, name: str, spec: dict) -
     attrs = spec.get("@attrs", {})
     part.calibration, part.calibration_source = _calibration(
         part, result, attrs.get("run_calibration_keV"), suffix=f"@{name}")
-    if _MODEL_REJECTED in attrs:
-        part.model_rejected = bool(np.asarray(attrs[_MODEL_REJECTED]).any())
-    if _PPC_P_VALUE in attrs:
-        part.ppc_p_value = float(np.asarray(attrs[_PPC_P_VALUE], dtype=float).ravel()[0])
-    if _PPC_RANGES in spec:
-        ranges = np.asarray(spec[_PPC_RANGES], dtype=float)
-        part.ppc_ranges = ranges.reshape(-1, 3).astype(int) if ranges.size else \
-            np.zeros((0, 3), dtype=int)
+    _predictive_check(part, {**attrs, **{k: v for k, v in spec.items() if k != "@attrs"}})
     return part
 
 
@@ -371,13 +364,18 @@ def _figure_inputs(data: ReportData, result: Result) -> None:
     data.profile_model = _text(model) if model is not None else ""
     if _NODE_DEPTH in result.profile:
         data.node_depth_1e15 = np.asarray(result.profile[_NODE_DEPTH], dtype=float).ravel()
-    diag = result.diagnostics
-    if _MODEL_REJECTED in diag:
-        data.model_rejected = bool(np.asarray(diag[_MODEL_REJECTED]).any())
-    if _PPC_P_VALUE in diag:
-        data.ppc_p_value = float(np.asarray(diag[_PPC_P_VALUE], dtype=float).ravel()[0])
-    if _PPC_RANGES in diag:
-        ranges = np.asarray(diag[_PPC_RANGES], dtype=float)
+    _predictive_check(data, result.diagnostics)
+
+
+def _predictive_check(data: ReportData, found: dict) -> None:
+    """The predictive check's verdict, p-value and ranges from ``/diagnostics`` (or a joint
+    run's ``/measurements/<name>``), where the file has them."""
+    if _MODEL_REJECTED in found:
+        data.model_rejected = bool(np.asarray(found[_MODEL_REJECTED]).any())
+    if _PPC_P_VALUE in found:
+        data.ppc_p_value = float(np.asarray(found[_PPC_P_VALUE], dtype=float).ravel()[0])
+    if _PPC_RANGES in found:
+        ranges = np.asarray(found[_PPC_RANGES], dtype=float)
         data.ppc_ranges = ranges.reshape(-1, 3).astype(int) if ranges.size else \
             np.zeros((0, 3), dtype=int)
 
