@@ -243,3 +243,33 @@ def test_two_geometries_jointly_hold_the_truth_and_narrow_the_film(world, tmp_pa
 
     written = build_report(tmp_path / "joint.h5", tmp_path / "report", formats=("png",))
     assert {"spectrum_normal.png", "spectrum_tilt60.png"} <= set(written)
+
+
+def test_check_reports_every_measurement(world, capsys):
+    from inversion import cli
+
+    code = cli.main(["check", str(world / "joint.toml")])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "=== measurement 'normal'" in out and "=== measurement 'tilt60'" in out
+    # each measurement's depth resolution per layer, and its spectrum against its calibration
+    assert out.count("resolution 1e15") == 2 * 2 and out.count("leading signal") == 2
+    assert "Joint fit: 5 free parameters" in out and "fluence_scale@tilt60" in out
+
+
+def test_resuming_a_joint_run_equals_running_longer(world, tmp_path, capsys):
+    # the command line without SPECTRUM; a cut chain resumed gives the uninterrupted one
+    from inversion import cli
+
+    base = ["-q", "invert", str(world / "joint.toml"), "--seed", "5", "--workers", "1"]
+    assert cli.main(base + ["-o", str(tmp_path / "one.h5"), "--max-steps", "40"]) == 0
+    assert cli.main(base + ["-o", str(tmp_path / "two.h5"), "--max-steps", "20"]) == 0
+    assert cli.main(base + ["-o", str(tmp_path / "two.h5"), "--max-steps", "40",
+                            "--resume"]) == 0
+    capsys.readouterr()
+    one = inversion.read_result(tmp_path / "one.h5", chain=True)
+    two = inversion.read_result(tmp_path / "two.h5", chain=True)
+    assert one.chain.shape[0] == two.chain.shape[0] == 40
+    assert np.array_equal(one.chain, two.chain)
+    assert np.array_equal(one.samples, two.samples)
+    assert list(two.measurements) == ["normal", "tilt60"]
