@@ -273,8 +273,9 @@ def prepare_joint(joint, *, likelihood=True, build_models=None):
 
     Parameters
     ----------
-    joint : inversion._joint.JointInputs
-        From :func:`inversion._joint.load_joint`.
+    joint : path, forward.MeasurementSet or inversion._joint.JointInputs
+        A run file with ``[[measurement]]`` tables naming its spectra, or its inputs as
+        :func:`inversion._joint.load_joint` reads them.
     likelihood : bool
         False: posterior = prior.
     build_models : list of callable, optional
@@ -284,6 +285,8 @@ def prepare_joint(joint, *, likelihood=True, build_models=None):
     -------
     JointObjective
     """
+    if not hasattr(joint, "inputs"):
+        joint = load_joint(joint)
     parts = []
     builders = build_models or [None] * len(joint.runs)
     for m, inputs, build in zip(joint.measurements.measurements, joint.inputs, builders):

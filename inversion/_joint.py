@@ -18,7 +18,7 @@ from forward import InputError
 from ._inputs import load_inputs, preflight_inputs
 from .fit._joint import measurement_fit
 
-__all__ = ["JointInputs", "load_joint", "preflight_joint", "measurement_runs", "is_joint"]
+__all__ = ["JointInputs", "load_joint", "preflight_joint", "measurement_runs"]
 
 
 @dataclass
@@ -37,13 +37,6 @@ class JointInputs:
     measurements: object
     runs: list
     inputs: list = field(default_factory=list)
-
-
-def is_joint(run) -> bool:
-    """True for a run file (a path) with ``[[measurement]]`` tables."""
-    if hasattr(run, "layers") or hasattr(run, "measurements"):
-        return bool(getattr(run, "joint", False))
-    return forward.has_measurements(run)
 
 
 def measurement_runs(measurements) -> list:
