@@ -273,3 +273,20 @@ def test_resuming_a_joint_run_equals_running_longer(world, tmp_path, capsys):
     assert np.array_equal(one.chain, two.chain)
     assert np.array_equal(one.samples, two.samples)
     assert list(two.measurements) == ["normal", "tilt60"]
+
+
+def test_a_joint_free_form_profile_needs_one_set_of_nodes(world, tmp_path):
+    for name in TILTS:
+        (tmp_path / f"{name}.csv").write_bytes((world / f"{name}.csv").read_bytes())
+    text = _joint_text().replace('[fit]\n', '[fit]\nprofile = "nodes"\n').replace(
+        '"film.areal_density" = { uniform = [150.0, 450.0] }\n',
+        '[fit.nodes]\nspecies = ["Ta", "Si"]\n{nodes}')
+    (tmp_path / "nodes.toml").write_text(text.replace("{nodes}", ""))
+    # each measurement's depth resolution would give the nodes another default count
+    with pytest.raises(InputError, match="different nodes"):
+        prepare_joint(tmp_path / "nodes.toml")
+    (tmp_path / "nodes.toml").write_text(text.replace("{nodes}",
+                                                      "count = 6\ndepth_1e15 = 500.0\n"))
+    joint = prepare_joint(tmp_path / "nodes.toml")
+    assert [n for n in joint.names if n.startswith("nodes.")] == \
+        ["nodes.Ta.logratio0"] + [f"nodes.Ta.step{k}" for k in range(1, 6)]

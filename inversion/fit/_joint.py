@@ -173,6 +173,13 @@ class JointObjective:
         for part, name, group in zip(self.parts, self.measurement_names, groups):
             mine = [p.name for p in part.spec.parameters if p.role not in PER_MEASUREMENT_ROLES]
             if mine != [p.name for p in shared]:
+                if first.spec.profile == "nodes":
+                    raise InputError(
+                        f"measurements {self.measurement_names[0]!r} and {name!r} give the "
+                        "free-form profile different nodes (the default node count and range "
+                        "follow each measurement's depth resolution); allowed: fit.nodes.count "
+                        "and fit.nodes.depth_1e15 given in the run file, the same for every "
+                        "measurement", where=f"{first.spec.source}: fit.nodes")
                 raise InputError(f"measurement {name!r} frees other shared quantities than "
                                  f"{self.measurement_names[0]!r}; the sample and its materials "
                                  "are one for every measurement", where=first.spec.source)
