@@ -227,6 +227,14 @@ def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> Me
         except InputError as exc:
             raise _located(exc, source, name) from None
         out.append(Measurement(name, run, spectrum, spectrum_text, group, windows))
+    first = out[0]
+    for m in out[1:]:
+        if m.run.beam.species != first.run.beam.species:
+            raise InputError(f"measurement {m.name!r} uses {m.run.beam.species} but "
+                             f"{first.name!r} {first.run.beam.species}; the stopping and "
+                             "straggling nuisances are shared, so allowed: one ion in every "
+                             "measurement (the beam energy may differ)",
+                             where=f"{source}: measurement.{m.name}.beam.ion")
     found = MeasurementSet(tuple(out), source, text, True)
     _check_groups(found)
     return found

@@ -135,6 +135,17 @@ def test_an_error_inside_a_measurement_names_it(tmp_path):
     assert err.value.where == "j.toml: measurement.normal.beam.energy_keV"
 
 
+def test_every_measurement_uses_one_ion():
+    # the stopping nuisances are shared: a 3He measurement beside a 4He one is refused
+    text = _joint_text()
+    at = text.index('name = "tilt60"')
+    text = text[:at] + text[at:].replace('ion = "4He"', 'ion = "3He"', 1)
+    with pytest.raises(InputError) as err:
+        forward.parse_measurements(text, source="j.toml")
+    assert err.value.where == "j.toml: measurement.tilt60.beam.ion"
+    assert "one ion in every measurement" in err.value.message
+
+
 def test_per_measurement_fit_keys_go_to_their_measurement():
     fit = {"free": {"film.areal_density": True, "fluence_scale@a": {"normal": [1.0, 0.1]},
                     "gain_keV@b": True}, "fixed": ["offset_keV@a", "stopping"]}
