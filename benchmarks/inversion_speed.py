@@ -10,6 +10,11 @@ Scenarios (invented samples, spectra simulated by the forward model with Poisson
 * ``nodes3``: the same beam on a Pt cap (100e15) over a Ni film (200e15) on Si, both
   interfaces mixed (widths 30e15 and 40e15); fitted with the free-form profile, 20 nodes to
   450e15, species Pt, Ni and Si (40 parameters + fluence).
+* ``joint``: the ``layers`` sample measured twice, at normal incidence (as ``layers``) and
+  tilted by 45 degrees (IBM layout, exit 60 degrees), fitted jointly (one run file with two
+  ``[[measurement]]`` tables: 10 shared and per-measurement parameters plus the tilted
+  spectrum's fluence, gain, offset and resolution, 14 in all) and, for comparison, the
+  normal-incidence spectrum alone (the ``layers`` fit); both are reported.
 
 Usage::
 
@@ -154,10 +159,36 @@ depth_1e15 = 450.0
 species = ["Pt", "Ni", "Si"]
 """
 
+_TILTED = COMMON.replace("incidence_deg = 0.0\nexit_deg = 15.0",
+                         "tilt_deg = 45.0\nlayout = \"IBM\"")
+#: the layers sample tilted by 45 degrees, as a run file of one measurement (to simulate it)
+LAYERS_TILTED = LAYERS.replace(COMMON, _TILTED).replace("windows = [[260, 760]]\n", "")
+
+
+def _measurement(name, tables, windows=None):
+    """A ``[[measurement]]`` table from the tables of a one-measurement run file."""
+    body = tables.split("[beam]", 1)[1]
+    for key in ("geometry", "detector", "calibration", "exposure"):
+        body = body.replace(f"[{key}]", f"[measurement.{key}]")
+    head = f'\n[[measurement]]\nname = "{name}"\nspectrum = "{name}.csv"\n'
+    if windows:
+        head += f"windows = {windows}\n"
+    return head + "[measurement.beam]" + body
+
+
+#: both measurements in one run file; the calibration, resolution and fluence are each
+#: spectrum's own, the sample and the stopping shared
+JOINT = (LAYERS.split("[[layer]]", 1)[1].join(["# INVENTED benchmark scenario (not a real "
+                                                "sample or measurement).\ntitle = \"invented "
+                                                "joint benchmark\"\n[[layer]]", ""])
+         .replace("windows = [[260, 760]]\n", "")
+         + _measurement("normal", COMMON, "[[260, 760]]") + _measurement("tilt45", _TILTED))
+
 #: invented truths: areal densities and mixing widths of the layer stack that made the spectra
 TRUTH = {"layers": ([300.0, 200.0], [15.0, 25.0]), "nodes": ([250.0], [60.0]),
          "nodes3": ([100.0, 200.0], [30.0, 40.0])}
-TEXT = {"layers": LAYERS, "nodes": NODES, "nodes3": NODES3}
+TRUTH["joint"] = TRUTH["layers"]
+TEXT = {"layers": LAYERS, "nodes": NODES, "nodes3": NODES3, "joint": JOINT}
 
 
 def simulate(run_path, scenario, seed):
@@ -201,27 +232,59 @@ def main(argv=None):
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args(argv)
 
+    settings = dict(max_steps=args.max_steps, moves=args.moves, walkers=args.walkers)
     with tempfile.TemporaryDirectory() as tmp:
-        run_path = Path(tmp) / "run.toml"
-        text = TEXT[args.scenario].format(max_steps=args.max_steps, moves=args.moves,
-                                          walkers=args.walkers)
-        run_path.write_text(text)
-        counts = simulate(run_path, args.scenario, args.seed)
-        # compile (or load) the numba kernel before timing
-        forward.ForwardModel(forward.load_run(run_path), n_channels=counts.size)
-        t0 = time.perf_counter()
-        cpu0 = _cpu_s()
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", NotConvergedWarning)
-            res = invert(run_path, counts, Path(tmp) / "out.h5", seed=args.seed,
-                         workers=args.workers, progress=False)
-        wall = time.perf_counter() - t0
-        cpu = _cpu_s() - cpu0
+        tmp = Path(tmp)
+        if args.scenario == "joint":
+            for name, text in (("normal", LAYERS), ("tilt45", LAYERS_TILTED)):
+                (tmp / f"{name}.toml").write_text(text.format(**settings))
+                counts = simulate(tmp / f"{name}.toml", "joint", args.seed)
+                np.savetxt(tmp / f"{name}.csv", np.column_stack([np.arange(counts.size),
+                                                                 counts]),
+                           fmt="%d", delimiter=",", header="channel,counts", comments="")
+            (tmp / "joint.toml").write_text(JOINT.format(**settings))
+            single = _timed(tmp / "normal.toml", tmp / "normal.csv", tmp / "single.h5", args)
+            joint = _timed(tmp / "joint.toml", None, tmp / "joint.h5", args)
+            out = {"scenario": "joint", "single": _figures(*single, args, "layers"),
+                   "joint": _figures(*joint, args, "joint")}
+            out["wall_ratio"] = round(joint[1] / single[1], 2)
+            out["ess_per_s_ratio"] = round(out["joint"]["ess_per_s"]
+                                           / out["single"]["ess_per_s"], 2)
+            out["load_average"] = [round(x, 2) for x in os.getloadavg()]
+            out["date"] = time.strftime("%Y-%m-%d %H:%M")
+        else:
+            run_path = tmp / "run.toml"
+            run_path.write_text(TEXT[args.scenario].format(**settings))
+            counts = simulate(run_path, args.scenario, args.seed)
+            out = _figures(*_timed(run_path, counts, tmp / "out.h5", args), args,
+                           args.scenario)
+    if args.json:
+        print(json.dumps(out))
+    else:
+        for k, v in out.items():
+            print(f"{k:>22}: {v}")
+
+
+def _timed(run_path, counts, output, args):
+    """``(result, wall s, cpu s)`` of one inversion (``counts`` None: the run file names its
+    spectra), the numba kernel compiled before the clock starts."""
+    forward.ForwardModel(forward.load_measurements(run_path).first, n_channels=1024)
+    t0 = time.perf_counter()
+    cpu0 = _cpu_s()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotConvergedWarning)
+        res = invert(run_path, counts, output, seed=args.seed, workers=args.workers,
+                     progress=False)
+    return res, time.perf_counter() - t0, _cpu_s() - cpu0
+
+
+def _figures(res, wall, cpu, args, scenario) -> dict:
+    """The benchmark's figures of one inversion."""
     d = res.diagnostics
     tau = np.asarray(d["autocorr_time"], dtype=float)
     ess = np.asarray(d["ess"], dtype=float)
     out = {
-        "scenario": args.scenario, "moves": args.moves, "workers": args.workers,
+        "scenario": scenario, "moves": args.moves, "workers": args.workers,
         "wall_s": round(wall, 2), "cpu_s": round(cpu, 1), "converged": bool(d["converged"]),
         "steps": int(d["steps"]), "walkers": int(d["walkers"]),
         "max_autocorr_steps": round(float(np.nanmax(tau)), 1),
@@ -235,13 +298,11 @@ def main(argv=None):
         "date": time.strftime("%Y-%m-%d %H:%M"),
         "python": platform.python_version(),
     }
-    if args.scenario == "layers":
-        out["film.areal_density_68"] = [round(v, 2) for v in res.interval("film.areal_density")]
-    if args.json:
-        print(json.dumps(out))
-    else:
-        for k, v in out.items():
-            print(f"{k:>22}: {v}")
+    if scenario in ("layers", "joint"):
+        for name in ("film.areal_density", "under.areal_density"):
+            out[f"{name}_95"] = [round(v, 2) for v in res.interval(name, 95)]
+        out["stopping.Ge_sd"] = round(res.summary["stopping.Ge"]["sd"], 4)
+    return out
 
 
 if __name__ == "__main__":

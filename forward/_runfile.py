@@ -570,6 +570,12 @@ def parse_run(text: str, source: str = "<string>", base_dir=None) -> Run:
         raise InputError(f"TOML syntax error: {msg[:1].lower() + msg[1:]}; the run file must be "
                          "valid TOML (key = value, [table], [[layer]])", where=where) from None
     base = Path(base_dir) if base_dir is not None else Path.cwd()
+    if "measurement" in raw:
+        n = len(raw["measurement"]) if isinstance(raw["measurement"], list) else 1
+        raise InputError(f"this run file holds {n} [[measurement]] tables, each naming its own "
+                         "spectrum; allowed here: a run file of one measurement (sondage invert "
+                         "RUN.toml -o RESULT.h5 without SPECTRUM and sondage check read several)",
+                         where=f"{source}: measurement")
     return _build(raw, source=source, text=text, base_dir=base)
 
 

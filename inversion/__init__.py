@@ -20,6 +20,7 @@ _EXPORTS = {
     # the job
     "invert": "._api",
     "prepare": "._api",
+    "prepare_joint": "._api",
     "read_result": ".results._result",
     "Result": ".results._result",
     "NotConvergedWarning": "._api",

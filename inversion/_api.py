@@ -20,11 +20,14 @@ from forward import InputError
 
 from ._about import PROGRAM, version
 from .fit._bands import posterior_bands
+from .fit._predictive import PPC_ALPHA
 from .fit._derived import depth_nm
 from .fit._nodes import depth_resolution, describe_nodes
+from .fit._joint import JointObjective
 from .fit._objective import ModelBuilder, Objective
 from .fit._spec import bind_fit, read_fit_settings, stopping_widths
 from .fit._window import film_floor_channel
+from ._joint import load_joint, preflight_joint
 from ._inputs import (MAX_STEPS, PreflightWarning, check_seed, load_inputs, preflight_inputs,
                       replay_warnings)
 from .results._outputs import WriterLock, check_output, spectrum_file
@@ -38,6 +41,7 @@ from .sample._flags import PosteriorFlagWarning, posterior_flags
 from .sample._sampler import Sampler, stop_on_interrupt
 
 __all__ = ["invert", "invert_reporting", "read_result", "NotConvergedWarning", "prepare",
+           "prepare_joint",
            "finalise", "PROGRAM", "PosteriorFlagWarning", "PreflightWarning"]
 
 
@@ -190,12 +194,17 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
     run_path = getattr(run, "source", run) if not isinstance(run, (str, Path)) else run
     inputs = {"run file": run_path if isinstance(run_path, (str, Path)) else None,
               "spectrum file": spectrum_file(spectrum)}
-    loaded = load_inputs(run, spectrum)
-    run, objective = prepare(loaded.run, loaded.spectrum, build_model=build_model,
-                             likelihood=likelihood)
-    input_warnings = [str(w.message) for w in loaded.load_warnings]
-    if build_model is None and likelihood:
-        input_warnings = preflight_inputs(loaded, accept_calibration=accept_calibration)
+    if spectrum is None:  # the spectra are named in the run file: several measurements
+        run, objective, input_warnings, spectra = _joint_inputs(
+            run, likelihood=likelihood, accept_calibration=accept_calibration)
+        inputs.update(spectra)
+    else:
+        loaded = load_inputs(run, spectrum)
+        run, objective = prepare(loaded.run, loaded.spectrum, build_model=build_model,
+                                 likelihood=likelihood)
+        input_warnings = [str(w.message) for w in loaded.load_warnings]
+        if build_model is None and likelihood:
+            input_warnings = preflight_inputs(loaded, accept_calibration=accept_calibration)
     if announce is not None and objective.spec.profile == "nodes":
         announce(describe_nodes(objective.spec.nodes, objective.spec.species))
     steps_where = "--max-steps" if max_steps is not None else f"{run.source}: fit.max_steps"
@@ -259,6 +268,66 @@ def invert(run, spectrum, output, *, seed=None, max_steps=None, resume=False, fo
     return read_result(output)
 
 
+def prepare_joint(joint, *, likelihood=True, build_models=None):
+    """The joint objective of every measurement of a joint run.
+
+    Parameters
+    ----------
+    joint : path, forward.MeasurementSet or inversion._joint.JointInputs
+        A run file with ``[[measurement]]`` tables naming its spectra, or its inputs as
+        :func:`inversion._joint.load_joint` reads them.
+    likelihood : bool
+        False: posterior = prior.
+    build_models : list of callable, optional
+        One ``build_model`` per measurement (see :func:`prepare`).
+
+    Returns
+    -------
+    JointObjective
+    """
+    if not hasattr(joint, "inputs"):
+        joint = load_joint(joint)
+    parts = []
+    builders = build_models or [None] * len(joint.runs)
+    for m, inputs, build in zip(joint.measurements.measurements, joint.inputs, builders):
+        try:
+            _, objective = prepare(inputs.run, inputs.spectrum, build_model=build,
+                                   likelihood=likelihood)
+        except InputError as exc:
+            raise InputError(f"measurement {m.name!r}: {exc.message}", where=exc.where) from None
+        parts.append(objective)
+    found = joint.measurements
+    return JointObjective(parts, found.names, [m.charge_group for m in found.measurements])
+
+
+def _joint_inputs(run, *, likelihood, accept_calibration):
+    """``(first measurement's run, JointObjective, input warnings, {what: spectrum file})`` of
+    a run file that names its spectra in ``[[measurement]]`` tables."""
+    path = getattr(run, "source", run)
+    if hasattr(run, "measurements"):
+        found = run
+    elif isinstance(path, (str, Path)) and forward.has_measurements(path):
+        found = forward.load_measurements(path)
+    else:
+        found = None
+        if isinstance(path, (str, Path)) and not Path(path).is_file():
+            forward.load_run(path)  # its own message for a missing file or a folder
+    if found is None or not found.joint:
+        raise InputError("no spectrum given, and the run file names none; allowed: a spectrum "
+                         "argument (sondage invert RUN.toml SPECTRUM -o RESULT.h5), or "
+                         "[[measurement]] tables each naming its spectrum", where=str(path))
+    joint = load_joint(found)
+    objective = prepare_joint(joint, likelihood=likelihood)
+    input_warnings = [f"measurement {m.name!r}: {w.message}"
+                      for m, loaded in zip(found.measurements, joint.inputs)
+                      for w in loaded.load_warnings]
+    if likelihood:
+        input_warnings = preflight_joint(joint, accept_calibration=accept_calibration)
+    spectra = {f"spectrum file of measurement {m.name!r}": m.spectrum
+               for m in found.measurements}
+    return joint.runs[0], objective, input_warnings, spectra
+
+
 def invert_reporting(run, spectrum, output, *, quiet=False, **kwargs) -> Result:
     """:func:`invert` as the command line runs it: a progress bar unless ``quiet``, then the
     median and 68 % interval of each thickness and width and the sampler's figures on stdout,
@@ -309,13 +378,16 @@ def _open_backend(output, run, objective, *, seed, resume, command):
                           forward.InputWarning, stacklevel=3)
         return backend, stored_seed
     seed = 0 if seed is None else seed
+    parts = getattr(objective, "parts", None)
     backend = create_result(
         output, run_text=run.text, counts=objective.counts, measured=objective.measured,
         priors=spec.describe_priors(),
         attrs=dict(program=PROGRAM, version=version(), seed=int(seed), command=command,
                    started=now_text(), status="running", profile_model=spec.profile,
                    moves=spec.moves),
-        names=spec.names, units=spec.units, n_walkers=spec.n_walkers, ndim=objective.ndim)
+        names=spec.names, units=spec.units, n_walkers=spec.n_walkers, ndim=objective.ndim,
+        measurements=None if parts is None else (objective.measurement_names,
+                                                 [p.counts.size for p in parts]))
     return backend, seed
 
 
@@ -420,23 +492,31 @@ def finalise(output, objective, status, *, seed, messages) -> list:
     messages += posterior_flags(spec, backend.get_chain(), logp_all, status.acceptance, samples)
     derived_names, derived_units, notes = objective.derived_names()
     derived = np.array([objective.derived(t) for t in samples])
-    bands = posterior_bands(objective, samples, theta_map, n_draws=spec.band_draws,
-                            seed=seed + 2)
     found = []
     diag = diagnostics(status, steps=steps, n_walkers=spec.n_walkers,
                        tau_multiple=spec.tau_multiple, discard=discard, thin=thin,
                        messages=messages)
-    check = bands.check
-    if check is not None:
-        if check.rejected:
-            found.append(_rejection_message(check))
-        diag.update(ppc_p_value=check.p_value, model_rejected=check.rejected,
-                    ppc_alpha=check.alpha, ppc_z_limit=check.z_limit,
-                    ppc_deviance=np.column_stack([check.deviance_observed,
-                                                  check.deviance_replicated]),
-                    ppc_blocks=np.column_stack([check.block_first, check.block_last,
-                                                check.block_z]),
-                    ppc_ranges=np.array(check.ranges, dtype=np.int64).reshape(-1, 3))
+    parts = getattr(objective, "parts", None)
+    measurements = None
+    if parts is None:
+        bands = posterior_bands(objective, samples, theta_map, n_draws=spec.band_draws,
+                                seed=seed + 2)
+        check = bands.check
+        if check is not None:
+            if check.rejected:
+                found.append(_rejection_message(check))
+            diag.update(ppc_p_value=check.p_value, model_rejected=check.rejected,
+                        ppc_alpha=check.alpha, ppc_z_limit=check.z_limit,
+                        ppc_deviance=np.column_stack([check.deviance_observed,
+                                                      check.deviance_replicated]),
+                        ppc_blocks=np.column_stack([check.block_first, check.block_last,
+                                                    check.block_z]),
+                        ppc_ranges=np.array(check.ranges, dtype=np.int64).reshape(-1, 3))
+        profile_objective = objective
+    else:
+        bands, measurements = _joint_bands(objective, samples, theta_map, seed=seed, diag=diag,
+                                           found=found)
+        profile_objective = parts[0]
     starts = read_starts(output)
     if starts is not None:
         diag["starts"] = np.column_stack([starts[0], starts[1]])
@@ -446,10 +526,40 @@ def finalise(output, objective, status, *, seed, messages) -> list:
         output, spec=spec, samples=samples, log_posterior=logp, discard=discard, thin=thin,
         derived_names=derived_names, derived_units=derived_units, derived_notes=notes,
         derived=derived, depth_1e15=bands.depth_1e15,
-        depth_nm=depth_nm(objective, bands.depth_1e15), bands=bands, counts=objective.counts,
-        window=objective.mask, run_calibration_keV=_run_calibration(objective),
-        diagnostics=diag)
+        depth_nm=depth_nm(profile_objective, bands.depth_1e15), bands=bands,
+        counts=objective.counts, window=getattr(objective, "mask", None),
+        run_calibration_keV=_run_calibration(profile_objective), diagnostics=diag,
+        measurements=measurements)
     return found
+
+
+def _joint_bands(objective, samples, theta_map, *, seed, diag, found):
+    """The bands of a joint run: the profile bands once (the sample is one), each spectrum's
+    predictive bands and predictive check, at a false-alarm level divided among the spectra
+    (Bonferroni); the joint verdict (rejected when any spectrum is) goes into ``diag``, each
+    rejection's message into ``found``."""
+    parts = objective.parts
+    alpha = PPC_ALPHA / len(parts)
+    spec = objective.spec
+    measurements, checks = [], []
+    bands = None
+    for k, (name, part) in enumerate(zip(objective.measurement_names, parts)):
+        # the same seed picks the same posterior draws for every spectrum
+        b = posterior_bands(part, objective.part_theta(samples, k),
+                            objective.part_theta(theta_map, k), n_draws=spec.band_draws,
+                            seed=seed + 2, alpha=alpha, profiles=k == 0)
+        bands = b if bands is None else bands
+        measurements.append(dict(name=name, bands=b, counts=part.counts, window=part.mask,
+                                 run_calibration_keV=_run_calibration(part), check=b.check))
+        if b.check is not None:
+            checks.append(b.check)
+            if b.check.rejected:
+                found.append(f"measurement {name!r}: " + _rejection_message(b.check))
+    if checks:
+        diag.update(ppc_p_value=min(c.p_value for c in checks),
+                    model_rejected=any(c.rejected for c in checks), ppc_alpha=alpha,
+                    ppc_spectra=len(parts))
+    return bands, measurements
 
 
 def _run_calibration(objective):

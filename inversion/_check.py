@@ -7,7 +7,7 @@ from __future__ import annotations
 import forward
 from forward import InputError
 
-from ._api import prepare
+from ._api import prepare, prepare_joint
 from ._inputs import load_inputs
 from .fit._spec import bind_fit, read_fit_settings
 
@@ -42,8 +42,60 @@ def check_files(run_file, spectrum_file=None) -> "forward.Preflight":
     :class:`forward.InputError`; the pre-flight errors are in the report
     (:meth:`forward.Preflight.error`).
     """
+    if not hasattr(run_file, "layers") and forward.has_measurements(run_file):
+        found = forward.load_measurements(run_file)
+        if spectrum_file is not None:
+            raise InputError("this run file names a spectrum in each of its [[measurement]] "
+                             "tables; allowed: sondage check RUN.toml without SPECTRUM",
+                             where=str(spectrum_file))
+        return _check_joint(found)
     inputs = load_inputs(run_file, spectrum_file)
     report = forward.preflight(inputs.run, inputs.spectrum, load_warnings=inputs.load_warnings)
     # with a spectrum that already fails, the [fit] table is checked without it
     report.findings += _fit_findings(inputs.run, None if report.errors else inputs.spectrum)
+    return report
+
+
+def _check_joint(found) -> "forward.Preflight":
+    """The report of a run file of several measurements: each measurement's report (its
+    edges, its depth resolution per layer, its spectrum against its calibration), under a
+    heading naming it, with each finding located in its measurement; then the joint ``[fit]``
+    table checked as ``sondage invert`` would."""
+    from ._joint import load_joint, measurement_runs
+
+    runs = measurement_runs(found)  # the [fit] table's @-names, checked
+    report = forward.Preflight(lines=[f"Run file {found.source}: {len(runs)} measurements of "
+                                      f"one sample ({', '.join(found.names)})"])
+    spectra = []
+    for m, run in zip(found.measurements, runs):
+        spectrum = None
+        if m.spectrum is not None:
+            if not m.spectrum.is_file():
+                raise InputError(f"spectrum file {str(m.spectrum)!r} not found; allowed: the "
+                                 "path of an existing spectrum file, relative to the run file",
+                                 where=f"{found.source}: measurement.{m.name}.spectrum")
+            spectrum = forward.resolve_spectrum(m)
+        inputs = load_inputs(run, spectrum)
+        spectra.append(inputs.spectrum)
+        part = forward.preflight(inputs.run, inputs.spectrum,
+                                 load_warnings=inputs.load_warnings)
+        group = f" (charge group {m.charge_group!r})" if m.charge_group else ""
+        report.lines += ["", f"=== measurement {m.name!r}{group}: spectrum "
+                             f"{m.spectrum_text or '(none named)'} ==="] + list(part.lines)
+        report.findings += [forward.Finding(f.severity, f.key, f"measurement {m.name!r}: "
+                                            f"{f.message}", f.where) for f in part.findings]
+    if not report.errors and ("fit" in found.first.raw or found.first.fit):
+        try:
+            for run in runs:
+                _fit_findings(run, None)
+            if all(s is not None for s in spectra):
+                objective = prepare_joint(load_joint(found, spectra=spectra))
+                report.lines += ["", f"Joint fit: {objective.ndim} free parameters: "
+                                     + ", ".join(objective.names)]
+        except InputError as exc:
+            if "nothing about the sample is free" not in exc.message:
+                raise
+            report.findings.append(forward.Finding(
+                "warning", "fit.free", exc.message + "; sondage invert refuses a [fit] table "
+                "that frees nothing", exc.where or ""))
     return report

@@ -179,7 +179,7 @@ def _check_series_file(out: Path, labels):
             assert "film.mixing_nm" in f[f"members/links/{lab}/derived"]
             assert member_state(member_path(out, lab)) == "finished"
         # the layout the README documents (README.md, "The series result file")
-        assert f.attrs["kind"] == "series" and f.attrs["format_version"] == 3
+        assert f.attrs["kind"] == "series" and f.attrs["format_version"] == 4
         assert set(f["members/summary"]) == {f"width_{k}" for k in
                                              ("median", "lo68", "hi68", "lo95", "hi95")}
         for lab in labels:

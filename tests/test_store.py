@@ -137,9 +137,9 @@ def test_layer_without_mass_density_has_nan_thickness_and_a_note(toy, tmp_path):
 def test_files_carry_their_format_version_and_older_files_read_as_version_1(result_path,
                                                                            tmp_path):
     with h5py.File(result_path, "r") as f:
-        assert f.attrs["format_version"] == FORMAT_VERSION == 3
+        assert f.attrs["format_version"] == FORMAT_VERSION == 4
         assert list(f["spectrum"].attrs["run_calibration_keV"]) == [40.0, 8.0, 0.0]
-    assert read_result(result_path).format_version == 3
+    assert read_result(result_path).format_version == 4
     old = tmp_path / "version1.h5"
     old.write_bytes(result_path.read_bytes())
     with h5py.File(old, "a") as f:  # a file written before the attribute existed
@@ -173,5 +173,5 @@ def test_resuming_a_version_1_file_writes_it_in_this_version(toy, result_path, t
         warnings.simplefilter("ignore", NotConvergedWarning)
         res = invert(run, _counts(toy, run), old, resume=True, max_steps=80,
                      build_model=toy.Builder(run), progress=False)
-    assert res.format_version == 3 and int(res.diagnostics["steps"]) == 80
+    assert res.format_version == 4 and int(res.diagnostics["steps"]) == 80
     assert "run_calibration_keV" in res.group_attrs["spectrum"]

@@ -15,6 +15,10 @@ surface depth resolution, signals closer than the detector resolution, and any w
 the Rutherford cross-section.  Give a spectrum as well to check that the counts' leading
 signal lies where the calibration puts it and that the counts are what the exposure implies.
 
+A run file of several measurements ([[measurement]] tables) is reported measurement by
+measurement, each with the spectrum it names (no SPECTRUM argument), then the joint fit's free
+parameters.
+
 The report ends with every error, warning and note found, the warnings raised while reading
 the files included.  Exit code 0 without errors; 2 when the files cannot be read or the
 report lists an error (what 'sondage invert' would refuse), with the first error on stderr.
@@ -23,6 +27,7 @@ examples:
   sondage check sample.toml
   sondage check sample.toml measured.csv
   sondage check sample.toml results.h5:/spectra/point_03
+  sondage check two-tilts.toml
 """
 
 

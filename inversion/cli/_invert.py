@@ -33,8 +33,14 @@ nuisances far from their priors are named in the warnings.
 Exit codes: 0 finished (a chain that did not converge is reported loudly), 2 bad input,
 3 finished but not converged with --require-convergence, 130 interrupted.
 
+A run file of several measurements of one sample ([[measurement]] tables, each naming its
+spectrum relative to the run file) is inverted jointly without a SPECTRUM argument: one
+posterior, the sample and the stopping shared, calibration, resolution and fluence per
+measurement (README.md, "Several spectra of one sample").
+
 examples:
   sondage invert run.toml spectrum.csv -o result.h5
+  sondage invert two-tilts.toml -o result.h5
   sondage invert run.toml spectrum.csv -o result.h5 --seed 7 --max-steps 20000 --workers 2
   sondage invert run.toml spectrum.csv -o result.h5 --resume --max-steps 40000
   sondage invert run.toml data.h5:/detector1/counts -o result.h5 --force
@@ -43,8 +49,9 @@ examples:
 
 def add_arguments(parser) -> None:
     parser.add_argument("run_file", metavar="RUN.toml", help="run file with a [fit] table")
-    parser.add_argument("spectrum", metavar="SPECTRUM",
-                        help="measured spectrum: text/CSV file or file.h5:/dataset")
+    parser.add_argument("spectrum", metavar="SPECTRUM", nargs="?", default=None,
+                        help="measured spectrum: text/CSV file or file.h5:/dataset (left out "
+                             "when the run file's [[measurement]] tables name the spectra)")
     parser.add_argument("-o", "--output", required=True, metavar="RESULT.h5",
                         help="HDF5 result file to write (never overwritten without --force)")
     parser.add_argument("--seed", type=int, default=None,
@@ -77,7 +84,8 @@ def run(args) -> int:
     from .._api import invert_reporting
 
     command = "sondage invert " + " ".join(
-        shlex.quote(a) for a in [args.run_file, args.spectrum, "-o", args.output]
+        shlex.quote(a) for a in [args.run_file]
+        + ([args.spectrum] if args.spectrum is not None else []) + ["-o", args.output]
         + (["--seed", str(args.seed)] if args.seed is not None else [])
         + (["--max-steps", str(args.max_steps)] if args.max_steps is not None else [])
         + ["--workers", str(args.workers)]

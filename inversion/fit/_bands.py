@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..results._schema import QUANTILES
-from ._predictive import PredictiveCheck, predictive_check
+from ._predictive import PPC_ALPHA, PredictiveCheck, predictive_check
 from ._roles import Role
 
 __all__ = ["Bands", "posterior_bands", "band_depth_1e15"]
@@ -123,7 +123,8 @@ def band_depth_1e15(objective) -> np.ndarray:
     return depth
 
 
-def posterior_bands(objective, samples, theta_map, *, n_draws: int, seed: int) -> Bands:
+def posterior_bands(objective, samples, theta_map, *, n_draws: int, seed: int,
+                    alpha: float = PPC_ALPHA, profiles: bool = True) -> Bands:
     """Profile and spectrum bands, and the predictive check, from ``n_draws`` seeded draws.
 
     Parameters
@@ -137,25 +138,33 @@ def posterior_bands(objective, samples, theta_map, *, n_draws: int, seed: int) -
     seed : int
         Seeds the choice of draws, the Poisson noise of the predictive spectrum and the
         replicated spectra of the predictive check.
+    alpha : float
+        False-alarm level of the predictive check's tests (a joint run divides it among its
+        spectra).
+    profiles : bool
+        False: spectra only (a joint run's later spectra: the profile bands are the first's).
     """
     species = objective.spec.species
     rng = np.random.default_rng(seed)
     n = min(n_draws, samples.shape[0]) if samples.shape[0] else 0
     idx = rng.choice(samples.shape[0], size=n, replace=False) if n else []
     depth = band_depth_1e15(objective)
+    want_profiles = bool(profiles)
     profiles, spectra, parts = [], [], []
     for i in idx:
-        profiles.append(objective.profile(samples[i], depth))
+        if want_profiles:
+            profiles.append(objective.profile(samples[i], depth))
         spectra.append(objective.predict(samples[i], "all"))
         parts.append(objective.predict(samples[i], "all", per_species=True))
     out = Bands(draws=n, energy_keV=objective.channel_energy_keV(theta_map), depth_1e15=depth)
     if not n:
         return out
-    fr_map = objective.profile(theta_map, depth)
-    q = np.quantile(np.array(profiles), QUANTILES, axis=0)  # (5, points, species)
-    for j, sp in enumerate(species):
-        out.profile[sp] = q[:, :, j]
-        out.profile_map[sp] = fr_map[:, j]
+    if want_profiles:
+        fr_map = objective.profile(theta_map, depth)
+        q = np.quantile(np.array(profiles), QUANTILES, axis=0)  # (5, points, species)
+        for j, sp in enumerate(species):
+            out.profile[sp] = q[:, :, j]
+            out.profile_map[sp] = fr_map[:, j]
     spectra = np.array(spectra)
     out.predictive = np.quantile(rng.poisson(spectra), QUANTILES, axis=0)
     out.model_median = np.median(spectra, axis=0)
@@ -164,5 +173,6 @@ def posterior_bands(objective, samples, theta_map, *, n_draws: int, seed: int) -
     if n >= 10 and objective.use_likelihood:
         out.check = predictive_check(objective.counts[objective.mask], spectra[:, objective.mask],
                                      objective.channels,
-                                     block_channels=objective.fwhm_channels(), seed=seed + 1)
+                                     block_channels=objective.fwhm_channels(), seed=seed + 1,
+                                     alpha=alpha)
     return out

@@ -25,11 +25,23 @@ from ._roles import Role
 from ._spec import FitSpec
 from ._window import film_floor_channel
 
-__all__ = ["Objective", "ModelBuilder", "TAIL_WIDTHS"]
+__all__ = ["Objective", "ModelBuilder", "TAIL_WIDTHS", "log_prior_of"]
 
 #: the slice grid reaches this many mixing widths below the deepest interface, so that the
 #: Gaussian tails of every layer lie inside it (they are below 1e-15 there)
 TAIL_WIDTHS = 8.0
+
+
+def log_prior_of(parameters, theta) -> float:
+    """Sum of the log prior densities of ``parameters`` at ``theta`` (-inf outside any
+    support); one copy for every objective."""
+    total = 0.0
+    for value, p in zip(theta, parameters):
+        lp = p.prior.logpdf(value)
+        if lp == -math.inf or lp != lp:
+            return -np.inf
+        total += float(lp)
+    return total
 
 
 class ModelBuilder:
@@ -466,13 +478,7 @@ class Objective:
     # ----- the three log densities -----
     def log_prior(self, theta) -> float:
         """Sum of the parameters' log prior densities (-inf outside any support)."""
-        total = 0.0
-        for value, p in zip(theta, self.spec.parameters):
-            lp = p.prior.logpdf(value)
-            if lp == -math.inf or lp != lp:
-                return -np.inf
-            total += float(lp)
-        return total
+        return log_prior_of(self.spec.parameters, theta)
 
     def log_likelihood(self, theta) -> float:
         """Poisson log-likelihood of the counts in the window (zeros included).

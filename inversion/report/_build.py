@@ -108,21 +108,24 @@ def write_report(data: ReportData, out_dir=None, *, formats=("png", "svg"),
     skipped: list[str] = []
     profile_options = {"layout": "overlay", "log_fraction": True} if profile == "log" else \
         {"layout": profile}
-    makers = (
-        ("spectrum", plot_spectrum, {"log_counts": bool(log_counts)},
-         data.counts is not None and data.predictive is not None),
+    spectra = [("spectrum", data)] if not data.measurements else \
+        [(f"spectrum_{name}", part) for name, part in data.measurements.items()]
+    makers = tuple(
+        (name, plot_spectrum, {"log_counts": bool(log_counts)},
+         part.counts is not None and part.predictive is not None, part)
+        for name, part in spectra) + (
         ("profile", plot_profile, profile_options,
-         bool(data.profile_bands) and data.depth_1e15 is not None),
+         bool(data.profile_bands) and data.depth_1e15 is not None, data),
         ("corner", plot_corner, {"include": corner},
-         data.samples is not None and data.samples.shape[0] > 1),
+         data.samples is not None and data.samples.shape[0] > 1, data),
         ("convergence", plot_convergence, {},
-         data.chain is not None and data.chain.shape[0] > 1),
+         data.chain is not None and data.chain.shape[0] > 1, data),
     )
-    for name, maker, options, available in makers:
+    for name, maker, options, available, source in makers:
         if not available:
             skipped.append(name)
             continue
-        fig = maker(data, **options)
+        fig = maker(source, **options)
         try:
             for fmt in formats:
                 target = out / f"{name}.{fmt}"

@@ -13,6 +13,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import dataclasses
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -105,6 +106,8 @@ class ReportData:
     model_rejected: bool | None = None  # the posterior predictive check's verdict, if any
     ppc_p_value: float | None = None
     ppc_ranges: np.ndarray | None = None  # (ranges, 3) int: first, last channel, sign
+    #: a joint run: measurement name -> a ReportData whose spectrum fields are that spectrum's
+    measurements: dict = field(default_factory=dict)
 
     def quantity(self, name: str, kind: str | None = None) -> Quantity:
         """The first :class:`Quantity` called ``name`` (of ``kind``, if given); KeyError if none."""
@@ -281,25 +284,8 @@ def report_data(result: Result) -> ReportData:
         elif arr.ndim == 2 and arr.shape[0] == len(PROFILE_QUANTILES):
             data.profile_bands[key] = arr
 
-    spec = result.spectrum
-    if "counts" in spec:
-        data.counts = np.asarray(spec["counts"], dtype=float)
-    elif result.counts is not None:
-        data.counts = np.asarray(result.counts, dtype=float)
-    if data.counts is not None:
-        data.channel = np.asarray(spec["channel"], dtype=float) if "channel" in spec else \
-            np.arange(data.counts.size, dtype=float)
-    if "predictive" in spec:
-        data.predictive = np.asarray(spec["predictive"], dtype=float)
-    if "model_median" in spec:
-        data.model_median = np.asarray(spec["model_median"], dtype=float)
-    if "window" in spec:
-        data.window = np.asarray(spec["window"], dtype=bool)
-    if "energy_keV" in spec:
-        data.channel_energy_keV = np.asarray(spec["energy_keV"], dtype=float)
-    for key, value in spec.items():
-        if key.startswith("species/"):
-            data.species_spectra[key[len("species/"):]] = np.asarray(value, dtype=float)
+    if not result.measurements:
+        _spectrum_fields(data, result.spectrum, counts=result.counts)
     data.calibration, data.calibration_source = _calibration(data, result)
 
     if result.chain is not None and result.chain.ndim == 3:
@@ -321,7 +307,46 @@ def report_data(result: Result) -> ReportData:
                 q.stats["autocorr_time_steps"] = float(tau[i])
             if ess is not None:
                 q.stats["effective_sample_size"] = float(ess[i])
+    for name, spec in result.measurements.items():  # a joint run: a panel per spectrum
+        data.measurements[name] = _measurement_data(data, result, name, spec)
     return data
+
+
+def _spectrum_fields(data: ReportData, spec: dict, counts=None) -> None:
+    """One spectrum's counts, window, predictive bands and channel energies."""
+    if "counts" in spec:
+        data.counts = np.asarray(spec["counts"], dtype=float)
+    elif counts is not None:
+        data.counts = np.asarray(counts, dtype=float)
+    if data.counts is not None:
+        data.channel = np.asarray(spec["channel"], dtype=float) if "channel" in spec else \
+            np.arange(data.counts.size, dtype=float)
+    if "predictive" in spec:
+        data.predictive = np.asarray(spec["predictive"], dtype=float)
+    if "model_median" in spec:
+        data.model_median = np.asarray(spec["model_median"], dtype=float)
+    if "window" in spec:
+        data.window = np.asarray(spec["window"], dtype=bool)
+    if "energy_keV" in spec:
+        data.channel_energy_keV = np.asarray(spec["energy_keV"], dtype=float)
+    for key, value in spec.items():
+        if key.startswith("species/"):
+            data.species_spectra[key[len("species/"):]] = np.asarray(value, dtype=float)
+
+
+def _measurement_data(data: ReportData, result: Result, name: str, spec: dict) -> ReportData:
+    """The report data of one spectrum of a joint run: the shared parts of ``data``, the
+    spectrum, calibration and predictive check of measurement ``name``."""
+    part = dataclasses.replace(data, measurements={}, species_spectra={}, counts=None,
+                               channel=None, predictive=None, model_median=None, window=None,
+                               channel_energy_keV=None, ppc_ranges=None, model_rejected=None,
+                               ppc_p_value=None)
+    _spectrum_fields(part, spec)
+    attrs = spec.get("@attrs", {})
+    part.calibration, part.calibration_source = _calibration(
+        part, result, attrs.get("run_calibration_keV"), suffix=f"@{name}")
+    _predictive_check(part, {**attrs, **{k: v for k, v in spec.items() if k != "@attrs"}})
+    return part
 
 
 #: names the figures read beyond the bands (README, "Result file"); optional, absent from older
@@ -339,18 +364,24 @@ def _figure_inputs(data: ReportData, result: Result) -> None:
     data.profile_model = _text(model) if model is not None else ""
     if _NODE_DEPTH in result.profile:
         data.node_depth_1e15 = np.asarray(result.profile[_NODE_DEPTH], dtype=float).ravel()
-    diag = result.diagnostics
-    if _MODEL_REJECTED in diag:
-        data.model_rejected = bool(np.asarray(diag[_MODEL_REJECTED]).any())
-    if _PPC_P_VALUE in diag:
-        data.ppc_p_value = float(np.asarray(diag[_PPC_P_VALUE], dtype=float).ravel()[0])
-    if _PPC_RANGES in diag:
-        ranges = np.asarray(diag[_PPC_RANGES], dtype=float)
+    _predictive_check(data, result.diagnostics)
+
+
+def _predictive_check(data: ReportData, found: dict) -> None:
+    """The predictive check's verdict, p-value and ranges from ``/diagnostics`` (or a joint
+    run's ``/measurements/<name>``), where the file has them."""
+    if _MODEL_REJECTED in found:
+        data.model_rejected = bool(np.asarray(found[_MODEL_REJECTED]).any())
+    if _PPC_P_VALUE in found:
+        data.ppc_p_value = float(np.asarray(found[_PPC_P_VALUE], dtype=float).ravel()[0])
+    if _PPC_RANGES in found:
+        ranges = np.asarray(found[_PPC_RANGES], dtype=float)
         data.ppc_ranges = ranges.reshape(-1, 3).astype(int) if ranges.size else \
             np.zeros((0, 3), dtype=int)
 
 
-def _calibration(data: ReportData, result: Result) -> tuple[dict, str]:
+def _calibration(data: ReportData, result: Result, stored=None, *,
+                 suffix: str = "") -> tuple[dict, str]:
     """Channel-to-energy calibration for the energy axis, and where it came from.
 
     Sampled ``gain_keV`` / ``offset_keV`` parameters give their posterior medians; the rest is
@@ -358,16 +389,17 @@ def _calibration(data: ReportData, result: Result) -> tuple[dict, str]:
     gain, quadratic).  A file without it (format version 1) shows the stored channel energies
     of the highest-posterior draw instead.
     """
-    stored = result.group_attrs.get(SPECTRUM, {}).get("run_calibration_keV")
+    if stored is None:
+        stored = result.group_attrs.get(SPECTRUM, {}).get("run_calibration_keV")
     if stored is None:
         return {}, ("channel energies at the highest-posterior draw's calibration"
                     if data.channel_energy_keV is not None else "")
     offset, gain, quadratic = (float(v) for v in np.asarray(stored, dtype=float).ravel()[:3])
     medians = {q.name: q.stats["median"] for q in data.quantities if q.kind == "parameter"}
-    cal = {"offset_keV": float(medians.get("offset_keV", offset)),
-           "keV_per_channel": float(medians.get("gain_keV", gain)),
+    cal = {"offset_keV": float(medians.get("offset_keV" + suffix, offset)),
+           "keV_per_channel": float(medians.get("gain_keV" + suffix, gain)),
            "quadratic_keV": quadratic}
-    sampled = [n for n in ("gain_keV", "offset_keV") if n in medians]
+    sampled = [n + suffix for n in ("gain_keV", "offset_keV") if n + suffix in medians]
     source = ("posterior median of " + " and ".join(sampled) + ", the rest from the run file"
               if sampled else "the run file's [calibration]")
     return cal, source

@@ -13,9 +13,9 @@ import numpy as np
 
 from forward import InputError
 
-from ._schema import (DERIVED, DIAGNOSTICS, INPUT_MEASURED, INPUT_PRIORS, INPUT_RUN,
-                      INPUT_SPECTRUM, LOG_POSTERIOR, MCMC, POSTERIOR_PRIORS, PROFILE, SAMPLES,
-                      SPECTRUM, START, STATS, SUMMARY)
+from ._schema import (DERIVED, DIAGNOSTICS, INPUT_MEASURED, INPUT_MEASUREMENTS, INPUT_PRIORS,
+                      INPUT_RUN, INPUT_SPECTRUM, LOG_POSTERIOR, MCMC, MEASUREMENTS,
+                      POSTERIOR_PRIORS, PROFILE, SAMPLES, SPECTRUM, START, STATS, SUMMARY)
 from ._store import read_tree
 
 __all__ = ["Result", "read_result"]
@@ -60,6 +60,11 @@ class Result:
         The top-level groups the file has.
     group_attrs : dict group -> dict
         Attributes of the top-level groups (e.g. ``spectrum``'s ``run_calibration_keV``).
+    measurements : dict name -> dict
+        A joint run's spectra (empty for a run of one spectrum): per measurement, in the run
+        file's order, the datasets of ``spectrum`` plus ``ppc_deviance``, ``ppc_blocks`` and
+        ``ppc_ranges``, and the group's attributes under ``"@attrs"``
+        (``run_calibration_keV``, ``ppc_p_value``, ``model_rejected``...).
     """
 
     path: str
@@ -85,6 +90,7 @@ class Result:
     log_prob: np.ndarray | None = None
     parts: set = field(default_factory=set)
     group_attrs: dict = field(default_factory=dict)
+    measurements: dict = field(default_factory=dict)
 
     @property
     def format_version(self) -> int:
@@ -188,6 +194,14 @@ def _result(path: str, tree) -> Result:
     for key, target in ((PROFILE, res.profile), (SPECTRUM, res.spectrum)):
         if key in tree:
             _flatten(tree[key], "", target)
+    if MEASUREMENTS in tree:
+        order = _strings(tree[INPUT_MEASUREMENTS].value) if INPUT_MEASUREMENTS in tree else []
+        children = tree[MEASUREMENTS].children
+        for name in [n for n in order if n in children] + sorted(set(children) - set(order)):
+            node = children[name]
+            out = {"@attrs": {k: _lists(v) for k, v in node.attrs.items()}}
+            _flatten(node, "", out)
+            res.measurements[name] = out
     if DIAGNOSTICS in tree:
         g = tree[DIAGNOSTICS]
         res.diagnostics = {k: _lists(v) for k, v in g.attrs.items()}

@@ -18,7 +18,8 @@ from __future__ import annotations
 __all__ = ["FORMAT_VERSION", "QUANTILES", "STATS", "INTERVAL_NOTE", "MCMC", "FINAL_GROUPS",
            "INPUT_RUN", "INPUT_SPECTRUM", "INPUT_MEASURED", "INPUT_PRIORS", "START",
            "SAMPLES", "LOG_POSTERIOR", "POSTERIOR_PRIORS", "SUMMARY", "DERIVED", "PROFILE",
-           "SPECTRUM", "DIAGNOSTICS", "DATASETS", "attrs_of", "SERIES_KIND",
+           "SPECTRUM", "DIAGNOSTICS", "MEASUREMENTS", "INPUT_MEASUREMENTS",
+           "INPUT_MEASUREMENT_CHANNELS", "DATASETS", "attrs_of", "SERIES_KIND",
            "SERIES_STAT_NAMES", "series_name", "CSV_STAT_COLUMNS", "SERIES_MEMBERS_TABLE",
            "SERIES_MEMBERS_LINKS", "SERIES_MEMBERS_SUMMARY", "SERIES_DIFFUSION",
            "SERIES_ARRHENIUS", "SERIES_COMPARISON", "SERIES_COMPARISON_STATS"]
@@ -26,8 +27,10 @@ __all__ = ["FORMAT_VERSION", "QUANTILES", "STATS", "INTERVAL_NOTE", "MCMC", "FIN
 #: written as the root attribute ``format_version`` of both kinds of file; a file without it
 #: is version 1 (same layout, written before the attribute existed).  Version 3: the profile
 #: bands lie on a shared depth grid of points (``/profile/depth``), no longer on slice centres;
-#: ``/diagnostics`` gains the predictive check, R-hat and the start searches.
-FORMAT_VERSION = 3
+#: ``/diagnostics`` gains the predictive check, R-hat and the start searches.  Version 4: a
+#: joint run of several spectra keeps one group per spectrum under ``/measurements`` (and
+#: their names and channel counts under ``/input``); single runs are laid out as in version 3.
+FORMAT_VERSION = 4
 
 #: quantiles (fractions) of every band and predictive spectrum: 2.5, 16, 50, 84, 97.5 %
 QUANTILES = (0.025, 0.16, 0.5, 0.84, 0.975)
@@ -51,8 +54,13 @@ DERIVED = "derived"
 PROFILE = "profile"
 SPECTRUM = "spectrum"
 DIAGNOSTICS = "diagnostics"
+#: joint runs: one group per spectrum, ``measurements/<name>/``, holding the datasets of
+#: ``/spectrum`` and the spectrum's own predictive check
+MEASUREMENTS = "measurements"
+INPUT_MEASUREMENTS = "input/measurements"
+INPUT_MEASUREMENT_CHANNELS = "input/measurement_channels"
 #: groups written at the end of a run, staged and swapped into place together
-FINAL_GROUPS = ("posterior", DERIVED, PROFILE, SPECTRUM, DIAGNOSTICS)
+FINAL_GROUPS = ("posterior", DERIVED, PROFILE, SPECTRUM, DIAGNOSTICS, MEASUREMENTS)
 
 #: dataset -> (unit, description) for the attributes the writer puts beside the data;
 #: ``{species}`` and ``{name}`` stand for one dataset per species or derived quantity
@@ -79,6 +87,17 @@ DATASETS = {
     "spectrum/predictive": ("counts", "posterior predictive, Poisson noise included"),
     "spectrum/model_median": ("counts", None),
     "spectrum/species/{species}": ("counts", "median model, this species"),
+    INPUT_MEASUREMENTS: (None, "joint runs: the measurements' names, in the order their "
+                               "spectra are joined in input/spectrum"),
+    INPUT_MEASUREMENT_CHANNELS: (None, "joint runs: channels of each measurement's spectrum "
+                                       "in input/spectrum"),
+    "measurements/{name}/ppc_deviance": (None, "this spectrum's Poisson deviance per "
+                                               "posterior draw: observed, replicated"),
+    "measurements/{name}/ppc_blocks": (None, "this spectrum's window blocks: first channel, "
+                                             "last channel, standardised residual sum z"),
+    "measurements/{name}/ppc_ranges": (None, "this spectrum's channel ranges where the "
+                                             "residuals run systematically: first, last, "
+                                             "sign"),
     "diagnostics/autocorr_time": ("steps", None),
     "diagnostics/acceptance": (None, "acceptance fraction per walker"),
     "diagnostics/ess": (None, "effective sample size: steps x walkers / tau"),

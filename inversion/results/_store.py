@@ -34,8 +34,8 @@ import numpy as np
 from forward import InputError
 
 from ._outputs import is_lock_error, waiting_for_lock, writer_pid
-from ._schema import FORMAT_VERSION, INPUT_MEASURED, INPUT_PRIORS, INPUT_RUN, INPUT_SPECTRUM, \
-    MCMC, attrs_of
+from ._schema import FORMAT_VERSION, INPUT_MEASURED, INPUT_MEASUREMENT_CHANNELS, \
+    INPUT_MEASUREMENTS, INPUT_PRIORS, INPUT_RUN, INPUT_SPECTRUM, MCMC, attrs_of
 
 __all__ = ["Node", "Link", "HDF5_ERRORS", "now_text", "checksummed", "write_input",
            "set_attrs", "write_groups", "write_tree", "read_tree", "is_hdf5",
@@ -121,9 +121,11 @@ def checksummed(arr) -> dict:
     return {"fletcher32": True}
 
 
-def write_input(path, *, run_text, counts, measured, priors, attrs):
+def write_input(path, *, run_text, counts, measured, priors, attrs, measurements=None):
     """Create a result file (replacing any file there) with its root attributes and
-    ``/input``; the attribute ``format_version`` is added."""
+    ``/input``; the attribute ``format_version`` is added.  ``measurements``: a joint run's
+    ``(names, channels per spectrum)`` (``counts`` and ``measured`` then hold the spectra
+    joined in that order)."""
     counts = np.asarray(counts, dtype=float)
     measured = np.asarray(measured, dtype=bool)
     with h5py.File(path, "w") as f:
@@ -134,6 +136,15 @@ def write_input(path, *, run_text, counts, measured, priors, attrs):
         d.attrs.update(attrs_of(INPUT_SPECTRUM))
         f.create_dataset(INPUT_MEASURED, data=measured, **checksummed(measured))
         f.create_dataset(INPUT_PRIORS, data=np.array(priors, dtype=object), dtype=_STR)
+        if measurements is not None:
+            names, channels = measurements
+            d = f.create_dataset(INPUT_MEASUREMENTS, data=np.array(names, dtype=object),
+                                 dtype=_STR)
+            d.attrs.update(attrs_of(INPUT_MEASUREMENTS))
+            channels = np.asarray(channels, dtype=np.int64)
+            d = f.create_dataset(INPUT_MEASUREMENT_CHANNELS, data=channels,
+                                 **checksummed(channels))
+            d.attrs.update(attrs_of(INPUT_MEASUREMENT_CHANNELS))
 
 
 def _open_for_writing(path):

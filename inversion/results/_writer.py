@@ -18,8 +18,8 @@ from forward import InputError
 
 from ._backend import SafeHDFBackend
 from ._schema import (DATASETS, DERIVED, DIAGNOSTICS, FORMAT_VERSION, INTERVAL_NOTE,
-                      LOG_POSTERIOR, MCMC, POSTERIOR_PRIORS, PROFILE, QUANTILES, SAMPLES,
-                      SPECTRUM, START, SUMMARY, attrs_of)
+                      LOG_POSTERIOR, MCMC, MEASUREMENTS, POSTERIOR_PRIORS, PROFILE, QUANTILES,
+                      SAMPLES, SPECTRUM, START, SUMMARY, attrs_of)
 from ._store import (HDF5_ERRORS, damaged_message, has_same_input, now_text, read_attrs,
                      read_mcmc_head, set_attrs, write_groups, write_input)
 from ._summary import summarise
@@ -29,9 +29,10 @@ __all__ = ["create_result", "open_for_resume", "write_start", "read_starts", "wr
 
 
 def create_result(path, *, run_text, counts, measured, priors, attrs, names, units,
-                  n_walkers: int, ndim: int) -> SafeHDFBackend:
+                  n_walkers: int, ndim: int, measurements=None) -> SafeHDFBackend:
     """A fresh result file (any file there is replaced): input, root attributes, an empty
-    chain of ``n_walkers`` x ``ndim``; returns its backend.
+    chain of ``n_walkers`` x ``ndim``; returns its backend.  ``measurements``: a joint run's
+    ``(names, channels per spectrum)``, stored under ``/input``.
 
     Raises
     ------
@@ -43,7 +44,8 @@ def create_result(path, *, run_text, counts, measured, priors, attrs, names, uni
         if path.exists():
             path.unlink()
         write_input(path, run_text=run_text, counts=counts, measured=measured, priors=priors,
-                    attrs=dict(attrs, emcee_version=emcee.__version__))
+                    attrs=dict(attrs, emcee_version=emcee.__version__),
+                    measurements=measurements)
         backend = SafeHDFBackend(str(path), name=MCMC)
         backend.reset(n_walkers, ndim)
         set_attrs(path, MCMC, parameter_names=names, parameter_units=units)
@@ -142,7 +144,7 @@ def open_chain(path) -> SafeHDFBackend:
 def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: int,
                     derived_names, derived_units, derived_notes, derived, depth_1e15,
                     depth_nm, bands, counts, window, run_calibration_keV,
-                    diagnostics: dict) -> None:
+                    diagnostics: dict, measurements=None) -> None:
     """Write the final groups of a result file in one staged swap.
 
     Parameters
@@ -169,6 +171,11 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
         (keV/channel^2); stored as an attribute of ``/spectrum`` for the figures' energy axis.
     diagnostics : dict
         From :func:`inversion.sample._convergence.diagnostics`.
+    measurements : list of dict, optional
+        A joint run's spectra, each ``{name, bands, counts, window, run_calibration_keV,
+        check}``: written as ``/measurements/<name>`` (the datasets of ``/spectrum`` and the
+        spectrum's own predictive check) instead of ``/spectrum``; ``bands`` then gives the
+        profile bands only.
     """
     names, units = spec.names, spec.units
     summary = summarise(np.column_stack([samples, derived]) if derived.size else samples)
@@ -195,22 +202,15 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
     if spec.profile == "nodes":
         profile["node_depth"] = (np.asarray(spec.nodes["node_depth_1e15"], dtype=float),
                                  attrs_of("profile/node_depth"))
-    spectrum = {"channel": np.arange(counts.size),
-                "counts": (counts, attrs_of("spectrum/counts")),
-                "window": (window, attrs_of("spectrum/window")),
-                "energy_keV": (bands.energy_keV, attrs_of("spectrum/energy_keV")),
-                "@attrs": {"run_calibration_keV": np.asarray(run_calibration_keV, dtype=float)}}
     if bands.draws:
         for sp, q in bands.profile.items():
             profile[sp] = (q, attrs_of("profile/{species}", quantiles=QUANTILES))
             profile[f"{sp}_map"] = (bands.profile_map[sp], attrs_of("profile/{species}_map"))
-        spectrum["predictive"] = (bands.predictive, attrs_of("spectrum/predictive",
-                                                             quantiles=QUANTILES))
-        spectrum["model_median"] = (bands.model_median, attrs_of("spectrum/model_median"))
-        spectrum["species"] = {sp: (row, attrs_of("spectrum/species/{species}"))
-                               for sp, row in bands.species.items()}
     groups[PROFILE] = profile
-    groups[SPECTRUM] = spectrum
+    if measurements is None:
+        groups[SPECTRUM] = _spectrum_group(counts, window, bands, run_calibration_keV)
+    else:
+        groups[MEASUREMENTS] = {m["name"]: _measurement_group(m) for m in measurements}
 
     d = dict(diagnostics)
     per_parameter = {"autocorr_time", "ess", "rhat"}
@@ -222,6 +222,40 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
             groups[DIAGNOSTICS][key] = (d.pop(key), attrs_of(f"diagnostics/{key}", **extra))
     groups[DIAGNOSTICS]["@attrs"] = d
     write_groups(path, groups)
+
+
+def _spectrum_group(counts, window, bands, run_calibration_keV) -> dict:
+    """The datasets of ``/spectrum`` (one spectrum's counts, window and predictive bands)."""
+    spectrum = {"channel": np.arange(counts.size),
+                "counts": (counts, attrs_of("spectrum/counts")),
+                "window": (window, attrs_of("spectrum/window")),
+                "energy_keV": (bands.energy_keV, attrs_of("spectrum/energy_keV")),
+                "@attrs": {"run_calibration_keV": np.asarray(run_calibration_keV, dtype=float)}}
+    if bands.draws:
+        spectrum["predictive"] = (bands.predictive, attrs_of("spectrum/predictive",
+                                                             quantiles=QUANTILES))
+        spectrum["model_median"] = (bands.model_median, attrs_of("spectrum/model_median"))
+        spectrum["species"] = {sp: (row, attrs_of("spectrum/species/{species}"))
+                               for sp, row in bands.species.items()}
+    return spectrum
+
+
+def _measurement_group(m: dict) -> dict:
+    """``/measurements/<name>``: the spectrum's datasets and its own predictive check."""
+    group = _spectrum_group(m["counts"], m["window"], m["bands"], m["run_calibration_keV"])
+    check = m.get("check")
+    if check is not None:
+        group["@attrs"].update(ppc_p_value=check.p_value, model_rejected=check.rejected,
+                               ppc_alpha=check.alpha, ppc_z_limit=check.z_limit)
+        group["ppc_deviance"] = (np.column_stack([check.deviance_observed,
+                                                  check.deviance_replicated]),
+                                 attrs_of("measurements/{name}/ppc_deviance"))
+        group["ppc_blocks"] = (np.column_stack([check.block_first, check.block_last,
+                                                check.block_z]),
+                               attrs_of("measurements/{name}/ppc_blocks"))
+        group["ppc_ranges"] = (np.array(check.ranges, dtype=np.int64).reshape(-1, 3),
+                               attrs_of("measurements/{name}/ppc_ranges"))
+    return group
 
 
 def _leaf(path: str) -> str:

@@ -187,6 +187,11 @@ def parse_series(text: str, source: str = "<string>", base_dir=None) -> Series:
     if not run_path.is_file():
         raise InputError(f"run-file template {s['run']!r} not found (looked in {base})",
                          where=f"{source}: series.run")
+    if _has_measurements(run_path):
+        raise InputError(f"run-file template {s['run']!r} holds [[measurement]] tables; a "
+                         "series member of several spectra is not supported yet; allowed: a "
+                         "template of one measurement (invert a joint run on its own with "
+                         "sondage invert RUN.toml -o RESULT.h5)", where=f"{source}: series.run")
     interface = s.get("interface", 1)
     if isinstance(interface, bool) or not isinstance(interface, int) or interface < 1:
         raise InputError(f"expected a whole number >= 1 (interface N lies below layer N), got "
@@ -278,6 +283,15 @@ def parse_series(text: str, source: str = "<string>", base_dir=None) -> Series:
     return Series(source=source, text=text, base_dir=base, run_path=run_path,
                   title=str(s.get("title", "")), interface=interface, widths_in=widths_in,
                   max_steps=max_steps, arrhenius_scatter=scatter, members=tuple(members))
+
+
+def _has_measurements(path) -> bool:
+    """True for a run file with ``[[measurement]]`` tables (a joint run); a file that does
+    not parse is left to the run-file reader's own message."""
+    try:
+        return "measurement" in tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError, OSError):
+        return False
 
 
 def member_run(series: Series, member: Member):

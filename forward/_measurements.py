@@ -1,0 +1,286 @@
+"""Run files of several measurements of one sample: ``[[measurement]]`` tables.
+
+One sample (``[[layer]]``, ``[physics]``, ``title`` and ``[fit]``) measured several times: two
+detectors at different angles recording one exposure, the sample tilted, a second beam energy.
+Each ``[[measurement]]`` table holds what belongs to one spectrum::
+
+    [[measurement]]
+    name = "tilt60"                  # letters, digits, '_' and '-'; unique
+    spectrum = "tilt60.csv"          # relative to the run file's folder
+    charge_group = "run1"            # optional: measurements of one exposure share its charge
+    windows = [[120, 460]]           # optional: this spectrum's fit windows
+    [measurement.beam]               # the tables of a one-measurement run file
+    [measurement.geometry]
+    [measurement.detector]
+    [measurement.calibration]
+    [measurement.exposure]
+
+Each measurement is checked as a run file of one measurement made of the shared tables and its
+own (:func:`load_measurements` gives a :class:`forward.Run` per measurement, with every check of
+:func:`forward.load_run`); error locations name the measurement
+(``run.toml: measurement.tilt60.beam.energy_keV``).  A run file without ``[[measurement]]``
+tables is one measurement, exactly as before.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from ._errors import InputError
+from ._runfile import _TOML_AT, _build, _kind
+
+__all__ = ["Measurement", "MeasurementSet", "load_measurements", "parse_measurements",
+           "has_measurements",
+           "PER_MEASUREMENT_TABLES", "MEASUREMENT_KEYS"]
+
+#: the tables that belong to one spectrum (shared tables: title, layer, physics, fit)
+PER_MEASUREMENT_TABLES = ("beam", "geometry", "detector", "calibration", "exposure")
+#: the keys of a ``[[measurement]]`` table
+MEASUREMENT_KEYS = ("name", "spectrum", "charge_group", "windows") + PER_MEASUREMENT_TABLES
+_SHARED_KEYS = ("title", "layer", "physics", "fit", "measurement")
+_NAME = re.compile(r"^[A-Za-z0-9_-]{1,40}$")
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """One spectrum of the sample.
+
+    Attributes
+    ----------
+    name : str
+        The measurement's name (parameter names carry it: ``fluence_scale@<name>``).
+    run : forward.Run
+        The shared tables and this measurement's own, checked as a run file of one
+        measurement (its ``text`` is the whole file's).
+    spectrum : Path or None
+        The spectrum file (resolved against the run file's folder); None when not given.
+    spectrum_text : str or None
+        The spectrum as written in the run file (``file.h5:/dataset`` kept whole).
+    charge_group : str or None
+        Measurements of one exposure share one charge (fluence) factor.
+    windows : list or None
+        This spectrum's fit windows as written (checked by the inversion).
+    """
+
+    name: str
+    run: object
+    spectrum: Path | None = None
+    spectrum_text: str | None = None
+    charge_group: str | None = None
+    windows: list | None = None
+
+
+@dataclass(frozen=True)
+class MeasurementSet:
+    """Every measurement of a run file (one for a run file without ``[[measurement]]``).
+
+    Attributes
+    ----------
+    measurements : tuple of Measurement
+    source : str
+        The run file.
+    text : str
+        Its text.
+    joint : bool
+        True for a run file with ``[[measurement]]`` tables.
+    """
+
+    measurements: tuple
+    source: str
+    text: str
+    joint: bool
+
+    @property
+    def names(self) -> list:
+        return [m.name for m in self.measurements]
+
+    @property
+    def first(self):
+        """The first measurement's run (the sample is the same in every one)."""
+        return self.measurements[0].run
+
+    def groups(self) -> dict:
+        """``{charge group: [measurement names]}``."""
+        out: dict = {}
+        for m in self.measurements:
+            if m.charge_group is not None:
+                out.setdefault(m.charge_group, []).append(m.name)
+        return out
+
+
+def load_measurements(path) -> MeasurementSet:
+    """Read and check a run file of one or several measurements.
+
+    Raises
+    ------
+    InputError
+        For a missing file and every bad key or value, a measurement named twice, a
+        per-measurement table at the top level beside ``[[measurement]]`` tables, a charge
+        group of one member, a missing spectrum file.
+    """
+    from ._runfile import load_run
+
+    p = Path(path)
+    if not p.exists() or p.is_dir():
+        return _single(load_run(path))  # its own message
+    from ._spectrum_io import decode_text
+
+    try:
+        text, _ = decode_text(p.read_bytes())
+    except UnicodeDecodeError:
+        return _single(load_run(path))
+    return parse_measurements(text, source=str(path), base_dir=p.resolve().parent)
+
+
+def has_measurements(path) -> bool:
+    """True for a run file with ``[[measurement]]`` tables (read as TOML only, no checks and
+    no warnings; a file that cannot be read is left to :func:`load_run`'s own message)."""
+    from ._spectrum_io import decode_text
+
+    try:
+        text, _ = decode_text(Path(path).read_bytes())
+        return "measurement" in tomllib.loads(text.removeprefix("\ufeff"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return False
+
+
+def _single(run) -> MeasurementSet:
+    return MeasurementSet((Measurement("spectrum", run),), run.source, run.text, False)
+
+
+def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> MeasurementSet:
+    """:func:`load_measurements` of a run file given as text."""
+    from ._runfile import parse_run
+
+    text = text.removeprefix("\ufeff")
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError:
+        parse_run(text, source=source, base_dir=base_dir)  # raises the house message
+        raise
+    if "measurement" not in raw:
+        return _single(parse_run(text, source=source, base_dir=base_dir))
+    base = Path(base_dir) if base_dir is not None else Path.cwd()
+    tables = raw["measurement"]
+    if not isinstance(tables, list) or not tables or not all(isinstance(t, dict)
+                                                             for t in tables):
+        raise InputError(f"expected [[measurement]] tables, got {_kind(tables)}; each "
+                         "measurement is a [[measurement]] table with a name and its spectrum",
+                         where=f"{source}: measurement")
+    for key in raw:
+        if key in PER_MEASUREMENT_TABLES:
+            raise InputError(f"[{key}] belongs to one measurement, but this run file has "
+                             f"[[measurement]] tables; allowed: [measurement.{key}] inside each "
+                             "measurement (the top level holds title, [[layer]], [physics], "
+                             "[fit])", where=f"{source}: {key}")
+        if key not in _SHARED_KEYS:
+            raise InputError(f"unknown key {key!r} in the run file's top level; allowed keys: "
+                             f"{', '.join(_SHARED_KEYS)}", where=f"{source}: {key}")
+    fit = raw.get("fit", {})
+    if isinstance(fit, dict) and "windows" in fit:
+        raise InputError("fit.windows belongs to one spectrum, but this run file has "
+                         "[[measurement]] tables; allowed: windows = [[first, last], ...] in "
+                         "each [[measurement]] table", where=f"{source}: fit.windows")
+    out, seen = [], set()
+    for k, table in enumerate(tables):
+        here = f"{source}: measurement[{k + 1}]"
+        unknown = [key for key in table if key not in MEASUREMENT_KEYS]
+        if unknown:
+            raise InputError(f"unknown key {unknown[0]!r} in a [[measurement]] table; allowed "
+                             f"keys: {', '.join(MEASUREMENT_KEYS)}", where=f"{here}.{unknown[0]}")
+        name = table.get("name")
+        if not isinstance(name, str) or not _NAME.match(name):
+            raise InputError(f"expected a name of 1 to 40 letters, digits, '_' or '-', got "
+                             f"{_kind(name) if name is not None else 'none'}; every measurement "
+                             "has a name (parameters are named after it, fluence_scale@<name>)",
+                             where=f"{here}.name")
+        if name in seen:
+            raise InputError(f"two measurements are named {name!r}; allowed: a different name "
+                             "for each measurement", where=f"{here}.name")
+        seen.add(name)
+        here = f"{source}: measurement.{name}"
+        spectrum_text = table.get("spectrum")
+        spectrum = None
+        if spectrum_text is not None:
+            if not isinstance(spectrum_text, str) or not spectrum_text.strip():
+                raise InputError(f"expected the path of a spectrum file in quotes, got "
+                                 f"{_kind(spectrum_text)}", where=f"{here}.spectrum")
+            file_part = spectrum_text.split(":/", 1)[0] if ".h5:" in spectrum_text \
+                or ".hdf5:" in spectrum_text else spectrum_text
+            spectrum = (base / file_part).resolve() if not Path(file_part).is_absolute() \
+                else Path(file_part)
+        group = table.get("charge_group")
+        if group is not None and (not isinstance(group, str) or not _NAME.match(group)):
+            raise InputError(f"expected a name of 1 to 40 letters, digits, '_' or '-', got "
+                             f"{_kind(group)}", where=f"{here}.charge_group")
+        windows = table.get("windows")
+        single = {key: raw[key] for key in ("title", "layer", "physics", "fit") if key in raw}
+        for key in PER_MEASUREMENT_TABLES:
+            if key in table:
+                single[key] = table[key]
+        try:
+            run = _build(single, source=source, text=text, base_dir=base)
+        except InputError as exc:
+            raise _located(exc, source, name) from None
+        out.append(Measurement(name, run, spectrum, spectrum_text, group, windows))
+    first = out[0]
+    for m in out[1:]:
+        if m.run.beam.species != first.run.beam.species:
+            raise InputError(f"measurement {m.name!r} uses {m.run.beam.species} but "
+                             f"{first.name!r} {first.run.beam.species}; the stopping and "
+                             "straggling nuisances are shared, so allowed: one ion in every "
+                             "measurement (the beam energy may differ)",
+                             where=f"{source}: measurement.{m.name}.beam.ion")
+    found = MeasurementSet(tuple(out), source, text, True)
+    _check_groups(found)
+    return found
+
+
+def resolve_spectrum(measurement: Measurement) -> str | None:
+    """The spectrum as :func:`forward.read_spectrum` takes it (an HDF5 dataset kept)."""
+    if measurement.spectrum is None:
+        return None
+    text = measurement.spectrum_text or ""
+    if ":/" in text and (".h5:" in text or ".hdf5:" in text):
+        return f"{measurement.spectrum}:/{text.split(':/', 1)[1]}"
+    return str(measurement.spectrum)
+
+
+def _located(exc: InputError, source: str, name: str) -> InputError:
+    """The error of a measurement's table, located inside that measurement."""
+    where = exc.where or ""
+    prefix = f"{source}: "
+    if where.startswith(prefix):
+        key = where[len(prefix):]
+        if key.split(".", 1)[0] in PER_MEASUREMENT_TABLES:
+            return InputError(exc.message, where=f"{prefix}measurement.{name}.{key}")
+        if not key or key == "<string>":
+            return InputError(exc.message, where=f"{prefix}measurement.{name}")
+    return InputError(f"{exc.message} (measurement {name!r})", where=exc.where)
+
+
+def _check_groups(found: MeasurementSet) -> None:
+    """A charge group joins two or more measurements of one exposure: same charge and beam."""
+    source = found.source
+    by_name = {m.name: m for m in found.measurements}
+    for group, names in found.groups().items():
+        if len(names) < 2:
+            raise InputError(f"charge group {group!r} has one member ({names[0]!r}); a charge "
+                             "group joins two or more measurements of one exposure (detectors "
+                             "recording one beam); allowed: the same charge_group in two or "
+                             "more measurements, or none",
+                             where=f"{source}: measurement.{names[0]}.charge_group")
+        first = by_name[names[0]].run
+        for other in names[1:]:
+            run = by_name[other].run
+            if (dataclasses.astuple(run.exposure) != dataclasses.astuple(first.exposure)
+                    or run.beam != first.beam):
+                raise InputError(f"measurements {names[0]!r} and {other!r} share charge group "
+                                 f"{group!r} but not one beam and exposure; allowed: the same "
+                                 "[measurement.beam] and [measurement.exposure] in every "
+                                 "member of a charge group",
+                                 where=f"{source}: measurement.{other}.charge_group")
