@@ -12,7 +12,7 @@ from scipy import stats
 from inversion import Role
 
 FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
-                "film.mixing": {"halfnormal": 30}}, "fixed": ["stopping", "straggling_scale"]}
+                "film.mixing": {"halfnormal": 30}}, "fixed": ["stopping", "straggling"]}
 
 
 def test_log_likelihood_equals_scipy_poisson_sum(toy):
@@ -100,7 +100,7 @@ def test_negative_background_is_outside_the_physical_limits(toy):
 
 def test_node_profile_parameters_and_random_walk_prior(toy):
     fit = {"profile": "nodes", "nodes": {"count": 6, "depth_1e15": 480.0, "step_sd": 0.4},
-           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]}
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling"]}
     obj = toy.objective(fit)
     assert obj.names[:6] == ["nodes.Ge.logratio0"] + [f"nodes.Ge.step{k}" for k in range(1, 6)]
     assert obj.names[6:] == ["fluence_scale"]

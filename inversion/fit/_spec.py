@@ -411,12 +411,17 @@ def bind_fit(settings: FitSettings, columns, default_nuisance, widths=None, *,
             # the stopping is trusted: its scales and its energy dependence
             expanded += [n for n in nuisance_like
                          if available[n][1] in (Role.STOPPING, Role.SLOPE)]
+        elif name == "straggling":
+            # the straggling law is trusted: its scale and its correction
+            expanded += [n for n in nuisance_like
+                         if available[n][1] in (Role.STRAGGLING, Role.STRAGGLING_CORRECTION)]
         elif name in nuisance_like:
             expanded.append(name)
         else:
             raise InputError(f"{name!r} is not a nuisance; nuisances: "
                              f"{', '.join(nuisance_like)} (or 'stopping' for every "
-                             "stopping scale and slope)",
+                             "stopping scale and slope, 'straggling' for the straggling "
+                             "scale and correction)",
                              where=where("fixed"))
     spec.fixed = tuple(expanded)
 
