@@ -135,24 +135,26 @@ def test_roles_carry_positions_and_targets(toy):
     assert [p.role for p in spec.parameters] == [
         Role.AREAL_DENSITY, Role.MIXING, Role.SHARE, Role.FLUENCE_SCALE, Role.OFFSET,
         Role.FWHM, Role.STOPPING, Role.STOPPING, Role.STRAGGLING, Role.SLOPE, Role.SLOPE,
-        Role.BACKGROUND, Role.BACKGROUND]
+        Role.STRAGGLING_CORRECTION, Role.BACKGROUND, Role.BACKGROUND]
     positions, targets = spec.index[Role.STOPPING]
     assert positions.tolist() == [6, 7] and targets.tolist() == [0, 1]  # Ge, Si
     assert spec.index[Role.SLOPE][0].tolist() == [9, 10]
     assert spec.index[Role.BACKGROUND][1].tolist() == [0, 1]  # low end, high end
     assert Role.GAIN not in spec.index
-    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 1.1, 0.01, -0.02, 0.5,
-                      1.5])
+    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 1.1, 0.01, -0.02, 0.4,
+                      0.5, 1.5])
     draw = obj.unpack(theta)
     nuisance = draw.nuisance
     assert nuisance.stopping_scale.tolist() == [1.02, 0.97]
     assert nuisance.straggling_scale == 1.1 and nuisance.stopping_slope.tolist() == [0.01, -0.02]
+    assert nuisance.straggling_correction == 0.4
     assert nuisance.offset_keV == 40.0 and nuisance.gain_keV == 8.0  # gain stays fixed
     assert draw.background.tolist() == [0.5, 1.5]
     # physical limits, role by role: a share must lie inside (0, 1), a scale above 0; a slope
     # may take any sign
     for i, bad in ((0, -1.0), (1, -0.1), (2, 1.0), (2, 0.0), (3, 0.0), (5, -2.0), (7, 0.0),
-                   (7, 0.1), (7, 6.0), (8, 0.0), (9, 0.6), (10, -0.5), (11, -0.5)):
+                   (7, 0.1), (7, 6.0), (8, 0.0), (9, 0.6), (10, -0.5), (11, -2.0), (11, 3.0),
+                   (12, -0.5)):
         outside = theta.copy()
         outside[i] = bad
         assert obj.unpack(outside) is None, (obj.names[i], bad)

@@ -224,5 +224,5 @@ def test_straggling_correction_is_a_default_nuisance_centred_on_the_law():
     assert "straggling_correction [1]: normal(0, 0.5) (default)" in lines
     theta = nominal_theta(obj, {"layer 1.areal_density": 250.0})
     assert obj.unpack(theta).nuisance.straggling_correction == 0.0
-    theta[obj.spec.names.index("straggling_correction")] = 2.5  # beyond the limits (-1, 2)
+    theta[obj.spec.names.index("straggling_correction")] = 3.5  # beyond the limits (-2, 3)
     assert obj.unpack(theta) is None

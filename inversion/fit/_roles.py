@@ -75,8 +75,9 @@ class Role(enum.Enum):
     #: one factor on every straggling variance, > 0
     STRAGGLING = ("straggling_scale", 0.0, None, "straggling_scale", False)
     #: the exponent of the Lindhard-Scharff ratio in every straggling rate (1: that law, 0:
-    #: Bohr's), in (-1, 2): beyond the two laws by as much as they differ from each other
-    STRAGGLING_CORRECTION = ("straggling_correction", -1.0, 2.0, "straggling_correction", False)
+    #: Bohr's), in (-2, 3): at least three prior standard deviations beyond either law, so
+    #: that the limits do not cut the prior (and the planning's Gaussian prior stays right)
+    STRAGGLING_CORRECTION = ("straggling_correction", -2.0, 3.0, "straggling_correction", False)
     #: background level (counts/channel), >= 0; target: 0 (flat or low end), 1 (high end)
     BACKGROUND = ("background", 0.0, None, None, False)
 
