@@ -148,7 +148,7 @@ substrate = true
 density_g_cm3 = 2.33
 [fit]
 profile = "nodes"
-fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]
+fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling"]
 windows = [[260, 780]]
 max_steps = {max_steps}
 moves = "{moves}"

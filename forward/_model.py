@@ -81,7 +81,8 @@ from ._kernel import (BROADENING_HALF_WIDTH, ROWS_PER_ISOTOPE, ROWS_PER_SPECIES,
                       KernelInputs, broadening_table, spectrum_kernel)
 from ._kinematics import kinematic_factor
 from ._stopping import STOPPING_SLOPE_REFERENCE_KEV, StoppingModel
-from ._straggling import STRAGGLING_LAWS, straggling_rate
+from ._straggling import (STRAGGLING_EXPONENTS, STRAGGLING_LAWS, bohr_variance,
+                          lindhard_scharff_chi, lindhard_scharff_ratio, straggling_rate)
 
 __all__ = ["ForwardModel", "Nuisance", "SliceGrid", "SpeciesInfo", "TABLE_FLOOR_KEV",
            "FWHM_TO_SIGMA"]
@@ -153,6 +154,12 @@ class Nuisance:
         ``stopping_scale * (E / STOPPING_SLOPE_REFERENCE_KEV)**stopping_slope`` (reference
         energy 1000 keV), so ``stopping_scale`` is the factor at 1000 keV and the slope tilts the
         stopping curve about it.  An empty array means all zero (no tilt).
+    straggling_correction : float or None
+        The exponent ``a`` of the Lindhard-Scharff correction in every straggling rate:
+        ``rate = Bohr * ratio(chi)**a`` per element (:func:`forward.straggling_rate`), so 1 is
+        the Lindhard-Scharff law, 0 Bohr's, and values between lie between the laws, by
+        element and energy as the laws themselves differ.  None: the run's law
+        (``[physics] straggling``).  ``straggling_scale`` multiplies the result.
 
     Notes
     -----
@@ -161,11 +168,13 @@ class Nuisance:
         [fluence_scale, gain_keV, offset_keV, quadratic_keV, fwhm_keV,
          stopping_scale[0], ..., stopping_scale[n-1],
          straggling_scale,
-         stopping_slope[0], ..., stopping_slope[n-1]]
+         stopping_slope[0], ..., stopping_slope[n-1],
+         straggling_correction]
 
-    for ``n`` elements (``6 + 2 n`` values).  The first ``5 + n`` values are the layout used
-    before the straggling scale and the slopes existed, which :meth:`from_array` still reads
-    when told ``n_elements``.
+    for ``n`` elements (``7 + 2 n`` values; NaN for a correction of None).  The first
+    ``6 + 2 n`` values are the layout before the straggling correction existed, the first
+    ``5 + n`` the one before the straggling scale and the slopes; :meth:`from_array` reads
+    both.
     """
 
     fluence_scale: float = 1.0
@@ -176,6 +185,7 @@ class Nuisance:
     stopping_scale: np.ndarray = field(default_factory=lambda: np.ones(0))
     straggling_scale: float = 1.0
     stopping_slope: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    straggling_correction: float | None = None
 
     def __post_init__(self):
         self.stopping_scale = np.atleast_1d(np.asarray(self.stopping_scale, dtype=float))
@@ -190,8 +200,9 @@ class Nuisance:
                              "give one of each per element")
         head = [self.fluence_scale, self.gain_keV, self.offset_keV, self.quadratic_keV,
                 self.fwhm_keV]
+        corr = math.nan if self.straggling_correction is None else self.straggling_correction
         return np.concatenate([np.asarray(head, dtype=float), self.stopping_scale,
-                               [float(self.straggling_scale)], slope])
+                               [float(self.straggling_scale)], slope, [float(corr)]])
 
     @classmethod
     def from_array(cls, values, n_elements: int | None = None) -> "Nuisance":
@@ -200,37 +211,42 @@ class Nuisance:
         Parameters
         ----------
         values : array_like
-            ``6 + 2 n`` values (layout in the class notes).
+            ``7 + 2 n`` values (layout in the class notes), or ``6 + 2 n`` (the straggling
+            correction None).
         n_elements : int, optional
-            Number of elements ``n``.  When given, the older layout of ``5 + n`` values
+            Number of elements ``n``.  When given, the oldest layout of ``5 + n`` values
             (without straggling scale and slopes: they are set to 1 and 0) is accepted too.
-            Without it an array of the older layout whose length happens to be even would be
-            misread, so pass it whenever an array may be old.
+            Without it the layout is told by the parity of the length (odd: ``7 + 2 n``, even:
+            ``6 + 2 n``), which misreads an array of the oldest layout, so pass it whenever an
+            array may be that old.
         """
         v = np.asarray(values, dtype=float)
         if v.ndim != 1:
             raise ValueError(f"a nuisance array is one-dimensional, got shape {v.shape}")
         if n_elements is None:
-            if v.size < 6 or (v.size - 6) % 2:
-                raise ValueError(f"a nuisance array has 6 + 2 n values for n elements, got "
+            if v.size < 6:
+                raise ValueError(f"a nuisance array has 7 + 2 n values for n elements, got "
                                  f"{v.size}; pass n_elements for the older 5 + n layout")
             n = (v.size - 6) // 2
         else:
             n = int(n_elements)
             if v.size == 5 + n:
                 return cls(*(float(x) for x in v[:5]), v[5:].copy())
-            if v.size != 6 + 2 * n:
-                raise ValueError(f"a nuisance array for {n} elements has {6 + 2 * n} values "
-                                 f"(or {5 + n} in the older layout), got {v.size}")
+            if v.size not in (6 + 2 * n, 7 + 2 * n):
+                raise ValueError(f"a nuisance array for {n} elements has {7 + 2 * n} values "
+                                 f"(or {6 + 2 * n} or {5 + n} in older layouts), got {v.size}")
+        corr = None
+        if v.size == 7 + 2 * n and math.isfinite(v[-1]):
+            corr = float(v[-1])
         return cls(*(float(x) for x in v[:5]), v[5:5 + n].copy(), float(v[5 + n]),
-                   v[6 + n:].copy())
+                   v[6 + n:6 + 2 * n].copy(), corr)
 
     @staticmethod
     def array_names(elements) -> list[str]:
         """Names of the entries of :meth:`to_array` for the given element symbols."""
         head = [f.name for f in fields(Nuisance)][:5]
         return (head + [f"stopping_scale_{sym}" for sym in elements] + ["straggling_scale"]
-                + [f"stopping_slope_{sym}" for sym in elements])
+                + [f"stopping_slope_{sym}" for sym in elements] + ["straggling_correction"])
 
 
 @dataclass(frozen=True)
@@ -385,6 +401,9 @@ class ForwardModel:
         d2S = np.zeros((n_el, n_tab))
         W = np.zeros((n_el, n_tab))
         dW = np.zeros((n_el, n_tab))
+        bohr = np.zeros((n_el, 1))
+        ratio = np.zeros((n_el, n_tab))
+        dlog = np.zeros((n_el, n_tab))  # d ln(ratio) / dE, 1/keV
         h = 0.25  # keV, central-difference step
         with warnings.catch_warnings():
             # the tables reach below the stopping formulas' fitted range so that the
@@ -399,7 +418,18 @@ class ForwardModel:
                     r = lambda x: np.asarray(straggling_rate(  # noqa: E731
                         self._z1, self._m1, {sym: 1.0}, x, correction=correction))
                     W[i], dW[i] = r(e), (r(e + h) - r(e - h)) / (2 * h)
+                    # Bohr's rate and the Lindhard-Scharff ratio, for other corrections
+                    bohr[i] = bohr_variance(self._z1, element(sym).z, 1.0)
+                    q = lambda x: lindhard_scharff_ratio(  # noqa: E731
+                        lindhard_scharff_chi(self._m1, element(sym).z, x))
+                    ratio[i] = q(e)
+                    dlog[i] = np.where(ratio[i] > 0, (q(e + h) - q(e - h)) / (2 * h)
+                                       / np.where(ratio[i] > 0, ratio[i], 1.0), 0.0)
         self._S, self._dS, self._d2S, self._W, self._dW = S, dS, d2S, W, dW
+        #: the run's law as an exponent of the Lindhard-Scharff ratio (1 or 0)
+        self.straggling_law_exponent = STRAGGLING_EXPONENTS[phys.straggling]
+        self._bohr, self._ls_ratio, self._ls_dlog = bohr, ratio, dlog
+        self._corrected = (self.straggling_law_exponent, W, dW)
 
         screening = None if phys.screening == "none" else phys.screening
         ratios = {sym: load_ratio_table(path) for sym, path in phys.cross_section_ratio.items()}
@@ -607,7 +637,8 @@ class ForwardModel:
         scale = np.array([self.run.physics.stopping_scale.get(s, 1.0) for s in self.elements])
         return Nuisance(1.0, float(cal.keV_per_channel), float(cal.offset_keV),
                         float(cal.quadratic_keV), float(self.run.detector.fwhm_keV), scale,
-                        1.0, np.zeros(len(self.elements)))
+                        1.0, np.zeros(len(self.elements)),
+                        float(STRAGGLING_EXPONENTS[self.run.physics.straggling]))
 
     def layer_fractions(self, grid: SliceGrid | None = None) -> np.ndarray:
         """The run's layered sample on a grid, ``(n_slices, n_species)``.
@@ -817,6 +848,7 @@ class ForwardModel:
         if not (math.isfinite(w_scale) and w_scale >= 0.0):
             raise InputError(f"straggling_scale={nu.straggling_scale!r}; it must be a finite "
                              "number >= 0", where="nuisance: straggling_scale")
+        W, dW = self.straggling_tables(nu.straggling_correction)
         slope = nu.stopping_slope
         if slope.size == 0:
             slope = self._zero_slope
@@ -829,7 +861,7 @@ class ForwardModel:
         return KernelInputs(
             widths, fr, self.species_element, len(self.elements),
             float(self.table_energy_keV[0]), self.table_step_keV,
-            self._S, self._dS, self._d2S, self._W, self._dW,
+            self._S, self._dS, self._d2S, W, dW,
             np.ascontiguousarray(nu.stopping_scale, dtype=float),
             np.ascontiguousarray(slope, dtype=float), STOPPING_SLOPE_REFERENCE_KEV, w_scale,
             self._iso_species, self._iso_k, self._iso_weight, self._e3sigma,
@@ -837,6 +869,32 @@ class ForwardModel:
             edges, float(nu.fwhm_keV) * FWHM_TO_SIGMA, self.particle_step_keV,
             TABLE_FLOOR_KEV, self._ftab, self._fder, BROADENING_HALF_WIDTH, self._du,
             mode, rec)
+
+    def straggling_tables(self, correction=None):
+        """The straggling rate tables ``(W, dW/dE)`` per element over :attr:`table_energy_keV`
+        (keV^2 per 1e15 atoms/cm2, and per keV) for a correction exponent (see
+        :attr:`Nuisance.straggling_correction`; None: the run's law).
+
+        ``W = Bohr * ratio**a`` and ``dW/dE = a * W * d ln(ratio)/dE``, ``ratio`` the
+        Lindhard-Scharff ratio of each element; the last exponent asked for is cached.
+        """
+        a, W, dW = self._corrected
+        if correction is None or correction == a:
+            return W, dW
+        a = float(correction)
+        if not math.isfinite(a):
+            raise InputError(f"straggling_correction={correction!r}; it must be a finite "
+                             "number (1: Lindhard-Scharff, 0: Bohr)",
+                             where="nuisance: straggling_correction")
+        if not self.straggling:
+            return self._W, self._dW
+        with np.errstate(divide="ignore"):
+            log_ratio = np.log(self._ls_ratio)
+        W = np.where(self._ls_ratio > 0, self._bohr * np.exp(a * log_ratio),
+                     self._bohr if a == 0 else 0.0)
+        dW = a * W * self._ls_dlog
+        self._corrected = (a, W, dW)
+        return W, dW
 
     #: Older name of :meth:`kernel_inputs` (it returned a plain tuple in the same order).
     kernel_arguments = kernel_inputs

@@ -53,6 +53,7 @@ __all__ = [
     "propagate",
     "CORRECTIONS",
     "STRAGGLING_LAWS",
+    "STRAGGLING_EXPONENTS",
 ]
 
 #: e^2 / (4 pi eps_0) in keV cm, from CODATA values in scipy.constants.
@@ -76,6 +77,9 @@ CORRECTIONS = ("lindhard-scharff", "none")
 #: Straggling laws a run file can choose (``[physics] straggling``), each with the
 #: low-energy correction :func:`straggling_rate` applies for it; the first is the default.
 STRAGGLING_LAWS = {"lindhard-scharff": "lindhard-scharff", "bohr": "none"}
+#: each law as the exponent of the Lindhard-Scharff ratio in ``Bohr * ratio**a``
+#: (``forward.Nuisance.straggling_correction``)
+STRAGGLING_EXPONENTS = {"lindhard-scharff": 1.0, "bohr": 0.0}
 
 
 def bohr_variance(z1, z2, areal_density_1e15):

@@ -75,6 +75,7 @@ class ToyNuisance:
     stopping_scale: np.ndarray = dataclasses.field(default_factory=lambda: np.ones(2))
     straggling_scale: float = 1.0
     stopping_slope: np.ndarray = dataclasses.field(default_factory=lambda: np.zeros(2))
+    straggling_correction: float = 1.0
 
 
 class ToyModel:

@@ -31,7 +31,7 @@ QUANTITIES = ("film.areal_density", "film.mixing")
 CHANNELS = 1024
 CHARGE_UC = 2.0
 WINDOW = (760, 890)
-FIXED = ["fluence_scale", "gain_keV", "offset_keV", "fwhm_keV", "stopping", "straggling_scale"]
+FIXED = ["fluence_scale", "gain_keV", "offset_keV", "fwhm_keV", "stopping", "straggling"]
 FAST = "walkers = 12\ntau_multiple = 30\ncheck_every = 50\nmax_steps = 6000\nband_draws = 10"
 N_REPLICAS = 8
 

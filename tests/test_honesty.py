@@ -86,7 +86,7 @@ def test_profile_log_likelihood_of_a_sharp_film_has_one_maximum(tmp_path):
                                    seed=1)
     fit_run = _run(tmp_path, t=1.07 * TRUE_T, charge=charge,
                    fit='fixed = ["gain_keV", "offset_keV", "fwhm_keV", "stopping", '
-                       '"straggling_scale"]')
+                       '"straggling"]')
     _, obj = inversion.prepare(fit_run, counts)
     assert obj.names == ["film.areal_density", "fluence_scale"]
     k = obj.counts[obj.mask]
@@ -200,7 +200,7 @@ def _laplace_draws(obj, theta0, n, rng):
 
 @pytest.mark.slow
 def test_predictive_check_flags_another_straggling_law_and_not_the_model_itself(tmp_path):
-    fit = 'fixed = ["gain_keV", "offset_keV", "stopping", "straggling_scale"]'
+    fit = 'fixed = ["gain_keV", "offset_keV", "stopping", "straggling"]'
     rng = np.random.default_rng(5)
 
     def check(world, seed):
@@ -233,7 +233,7 @@ def test_three_seeds_agree_on_a_high_count_sharp_film(tmp_path):
     # the areal density, the fluence it trades with and the resolution free: the ripple of a
     # fixed grid lived in exactly these (the other nuisances fixed to keep the test short)
     fit_run = _run(tmp_path, t=1.07 * TRUE_T, charge=charge,
-                   fit='fixed = ["gain_keV", "offset_keV", "stopping", "straggling_scale"]')
+                   fit='fixed = ["gain_keV", "offset_keV", "stopping", "straggling"]')
     intervals = []
     for seed in (1, 2, 3):
         with warnings.catch_warnings():

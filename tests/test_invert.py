@@ -57,7 +57,8 @@ def test_defaults_are_stated_in_the_spec(toy):
     assert f"stopping.Ge [1]: normal(1, {scale_sd:.4g}) (default)" in lines
     assert f"slope.Ge [1]: normal(0, {slope_sd:.4g}) (default)" in lines
     assert "straggling_scale [1]: lognormal(1, 0.3) (default)" in lines
-    assert spec.n_walkers == 44  # max(32, 4 x 11 parameters)
+    assert "straggling_correction [1]: normal(1, 0.5) (default)" in lines
+    assert spec.n_walkers == 48  # max(32, 4 x 12 parameters)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -150,7 +151,7 @@ formula = "Si"
 substrate = true
 density_g_cm3 = 2.33
 [fit]
-fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "fluence_scale", "straggling_scale"]
+fixed = ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "fluence_scale", "straggling"]
 walkers = 8
 tau_multiple = 30
 max_steps = {steps}

@@ -346,19 +346,24 @@ def test_nuisance_round_trip():
     nu.stopping_slope = np.linspace(-0.1, 0.1, n)
     arr = nu.to_array()
     names = forward.Nuisance.array_names(model.elements)
-    assert arr.size == 6 + 2 * n == len(names)
-    # layout: the five scalars, the scales, the straggling scale, the slopes
+    assert arr.size == 7 + 2 * n == len(names)
+    # layout: the five scalars, the scales, the straggling scale, the slopes, the correction
     assert names[5:5 + n] == [f"stopping_scale_{e}" for e in model.elements]
     assert names[5 + n] == "straggling_scale" and arr[5 + n] == 1.3
-    assert names[6 + n:] == [f"stopping_slope_{e}" for e in model.elements]
+    assert names[6 + n:6 + 2 * n] == [f"stopping_slope_{e}" for e in model.elements]
+    assert names[-1] == "straggling_correction" and arr[-1] == 1.0  # the default law's
     for back in (forward.Nuisance.from_array(arr), forward.Nuisance.from_array(arr, n)):
         assert np.array_equal(back.to_array(), arr)
-    # the older layout (5 + n values) still reads, with straggling scale 1 and no slopes
+    # the layout before the correction (6 + 2 n values): the run's law
+    mid = forward.Nuisance.from_array(arr[:-1])
+    assert mid.straggling_correction is None and np.isnan(mid.to_array()[-1])
+    assert np.array_equal(mid.to_array()[:-1], arr[:-1])
+    # the oldest layout (5 + n values) still reads, with straggling scale 1 and no slopes
     old = forward.Nuisance.from_array(arr[:5 + n], n_elements=n)
     assert old.straggling_scale == 1.0 and np.array_equal(old.stopping_scale, nu.stopping_scale)
-    assert np.array_equal(old.to_array()[6 + n:], np.zeros(n))
+    assert np.array_equal(old.to_array()[6 + n:6 + 2 * n], np.zeros(n))
     with pytest.raises(ValueError, match="n_elements"):
-        forward.Nuisance.from_array(arr[:-1])
+        forward.Nuisance.from_array(arr[:5])
     # a nuisance made without slopes (empty array) means no tilt
     plain = forward.Nuisance(*arr[:5], nu.stopping_scale)
     assert plain.stopping_slope.size == 0 and plain.straggling_scale == 1.0

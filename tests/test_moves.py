@@ -36,7 +36,7 @@ def test_resume_with_subspace_moves_is_exact(toy, tmp_path):
     from inversion import Sampler
 
     fit = {"profile": "nodes", "nodes": {"count": 5, "depth_1e15": 480.0},
-           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"],
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling"],
            "moves": "subspace"}
     obj = toy.objective(fit)
 
@@ -66,7 +66,7 @@ def test_gradient_polish_climbs_and_is_the_same_with_workers(toy):
     from inversion.sample._workers import worker_pool
 
     fit = {"profile": "nodes", "nodes": {"count": 6, "depth_1e15": 480.0},
-           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]}
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling"]}
     obj = toy.objective(fit)
     bounds = prior_bounds(obj)
     start = np.concatenate([np.full(obj.ndim - 1, 0.3), [1.02]])

@@ -12,7 +12,7 @@ from scipy import stats
 from inversion import Role
 
 FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
-                "film.mixing": {"halfnormal": 30}}, "fixed": ["stopping", "straggling_scale"]}
+                "film.mixing": {"halfnormal": 30}}, "fixed": ["stopping", "straggling"]}
 
 
 def test_log_likelihood_equals_scipy_poisson_sum(toy):
@@ -100,7 +100,7 @@ def test_negative_background_is_outside_the_physical_limits(toy):
 
 def test_node_profile_parameters_and_random_walk_prior(toy):
     fit = {"profile": "nodes", "nodes": {"count": 6, "depth_1e15": 480.0, "step_sd": 0.4},
-           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling_scale"]}
+           "fixed": ["stopping", "gain_keV", "offset_keV", "fwhm_keV", "straggling"]}
     obj = toy.objective(fit)
     assert obj.names[:6] == ["nodes.Ge.logratio0"] + [f"nodes.Ge.step{k}" for k in range(1, 6)]
     assert obj.names[6:] == ["fluence_scale"]
@@ -135,24 +135,26 @@ def test_roles_carry_positions_and_targets(toy):
     assert [p.role for p in spec.parameters] == [
         Role.AREAL_DENSITY, Role.MIXING, Role.SHARE, Role.FLUENCE_SCALE, Role.OFFSET,
         Role.FWHM, Role.STOPPING, Role.STOPPING, Role.STRAGGLING, Role.SLOPE, Role.SLOPE,
-        Role.BACKGROUND, Role.BACKGROUND]
+        Role.STRAGGLING_CORRECTION, Role.BACKGROUND, Role.BACKGROUND]
     positions, targets = spec.index[Role.STOPPING]
     assert positions.tolist() == [6, 7] and targets.tolist() == [0, 1]  # Ge, Si
     assert spec.index[Role.SLOPE][0].tolist() == [9, 10]
     assert spec.index[Role.BACKGROUND][1].tolist() == [0, 1]  # low end, high end
     assert Role.GAIN not in spec.index
-    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 1.1, 0.01, -0.02, 0.5,
-                      1.5])
+    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 1.1, 0.01, -0.02, 0.4,
+                      0.5, 1.5])
     draw = obj.unpack(theta)
     nuisance = draw.nuisance
     assert nuisance.stopping_scale.tolist() == [1.02, 0.97]
     assert nuisance.straggling_scale == 1.1 and nuisance.stopping_slope.tolist() == [0.01, -0.02]
+    assert nuisance.straggling_correction == 0.4
     assert nuisance.offset_keV == 40.0 and nuisance.gain_keV == 8.0  # gain stays fixed
     assert draw.background.tolist() == [0.5, 1.5]
     # physical limits, role by role: a share must lie inside (0, 1), a scale above 0; a slope
     # may take any sign
     for i, bad in ((0, -1.0), (1, -0.1), (2, 1.0), (2, 0.0), (3, 0.0), (5, -2.0), (7, 0.0),
-                   (7, 0.1), (7, 6.0), (8, 0.0), (9, 0.6), (10, -0.5), (11, -0.5)):
+                   (7, 0.1), (7, 6.0), (8, 0.0), (9, 0.6), (10, -0.5), (11, -2.0), (11, 3.0),
+                   (12, -0.5)):
         outside = theta.copy()
         outside[i] = bad
         assert obj.unpack(outside) is None, (obj.names[i], bad)

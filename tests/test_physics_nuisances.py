@@ -172,3 +172,57 @@ def test_bad_nuisance_values_raise_input_errors():
     nu.stopping_slope = np.zeros(2)
     with pytest.raises(forward.InputError, match="one per element"):
         model.expected_counts(fr, nu)
+
+
+def test_straggling_correction_moves_between_the_laws():
+    # rate = Bohr * ratio(chi)**a: a = 1 is the Lindhard-Scharff law, a = 0 Bohr's (the two
+    # laws as forward.straggling_rate gives them, each built into its own model), a = 0.5 their
+    # geometric mean, and dW/dE = a W d ln(ratio)/dE by central differences of that product
+    ls = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
+    bohr = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE,
+                                         physics='[physics]\nstraggling = "bohr"\n'))
+    assert ls.default_nuisance().straggling_correction == 1.0
+    assert bohr.default_nuisance().straggling_correction == 0.0
+    w1, dw1 = ls.straggling_tables(1.0)
+    np.testing.assert_allclose(w1, ls._W, rtol=1e-12)
+    w0, dw0 = ls.straggling_tables(0.0)
+    np.testing.assert_allclose(w0, bohr._W, rtol=1e-12)
+    np.testing.assert_array_equal(dw0, 0.0)
+    wh, dwh = ls.straggling_tables(0.5)
+    np.testing.assert_allclose(wh, np.sqrt(ls._W * bohr._W), rtol=1e-12)
+    e = ls.table_energy_keV
+    for i, sym in enumerate(ls.elements):
+        z2 = forward.element(sym).z
+
+        def rate(x, z2=z2):
+            return (forward.straggling_rate(2, ls._m1, {sym: 1.0}, x, correction="none")
+                    * np.sqrt(forward.straggling_rate(2, ls._m1, {sym: 1.0}, x)
+                              / forward.straggling_rate(2, ls._m1, {sym: 1.0}, x,
+                                                        correction="none")))
+        inner = slice(10, -10)
+        numeric = (rate(e[inner] + 0.01) - rate(e[inner] - 0.01)) / 0.02
+        np.testing.assert_allclose(dwh[i, inner], numeric, rtol=1e-3, atol=1e-9)
+    # through the whole model: an LS run at a = 0 gives the Bohr run's spectrum
+    fr = ls.layer_fractions()
+    nu = ls.default_nuisance()
+    nu.straggling_correction = 0.0
+    np.testing.assert_allclose(ls.expected_counts(fr, nu), bohr.expected_counts(fr),
+                               rtol=1e-12, atol=1e-12)
+    nu.straggling_correction = float("nan")
+    with pytest.raises(forward.InputError, match="straggling_correction"):
+        ls.expected_counts(fr, nu)
+
+
+def test_straggling_correction_is_a_default_nuisance_centred_on_the_law():
+    import inversion
+    from inversion.fit._information import nominal_theta
+
+    run = make_run(FILM_ON_SUBSTRATE, physics='[physics]\nstraggling = "bohr"\n'
+                   '[fit.free]\n"layer 1.areal_density" = true\n')
+    _, obj = inversion.prepare(run, np.ones(1024))
+    lines = obj.spec.describe_priors()
+    assert "straggling_correction [1]: normal(0, 0.5) (default)" in lines
+    theta = nominal_theta(obj, {"layer 1.areal_density": 250.0})
+    assert obj.unpack(theta).nuisance.straggling_correction == 0.0
+    theta[obj.spec.names.index("straggling_correction")] = 3.5  # beyond the limits (-2, 3)
+    assert obj.unpack(theta) is None

@@ -33,7 +33,7 @@ def test_prior_only_samples_reproduce_the_priors(toy):
                     "film.mixing": {"halfnormal": 30},
                     "film.composition": True,
                     "fluence_scale": {"lognormal": [1.0, 0.1]}},
-           "fixed": ["stopping", "gain_keV", "offset_keV", "straggling_scale"], "walkers": 24}
+           "fixed": ["stopping", "gain_keV", "offset_keV", "straggling"], "walkers": 24}
     obj = toy.objective(fit, likelihood=False)
     backend, status = _chain(obj, 6000, seed=9, check_every=1000)
     tau = float(np.max(status.tau))

@@ -15,7 +15,7 @@ from inversion.results._store import write_groups, write_input
 
 FIT = {"free": {"film.areal_density": {"uniform": [100, 600]},
                 "film.mixing": {"halfnormal": 30}},
-       "fixed": ["stopping", "gain_keV", "offset_keV", "straggling_scale"], "walkers": 12, "max_steps": 60,
+       "fixed": ["stopping", "gain_keV", "offset_keV", "straggling"], "walkers": 12, "max_steps": 60,
        "check_every": 20, "band_draws": 40}
 
 

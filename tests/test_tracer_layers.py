@@ -53,7 +53,7 @@ name = "base"
 formula = "C"
 substrate = true
 [fit]
-fixed = ["fluence_scale", "gain_keV", "offset_keV", "fwhm_keV", "stopping", "straggling_scale"]
+fixed = ["fluence_scale", "gain_keV", "offset_keV", "fwhm_keV", "stopping", "straggling"]
 windows = [[300, 800]]
 walkers = 8
 tau_multiple = 20

@@ -27,7 +27,7 @@ import numpy as np
 from ._priors import Prior, make_prior
 
 __all__ = ["Role", "NuisanceKind", "NUISANCES", "NUISANCE_NAMES", "DEFAULT_STOPPING_SD",
-           "STRAGGLING_SIGMA", "RoleIndex"]
+           "STRAGGLING_SIGMA", "STRAGGLING_CORRECTION_SD", "RoleIndex"]
 
 #: Relative sd of the stopping scale prior of an element whose stopping comes from the user's
 #: own table (the run file's ``[physics] stopping_tables``): the table is as well known as the
@@ -36,6 +36,9 @@ __all__ = ["Role", "NuisanceKind", "NUISANCES", "NUISANCE_NAMES", "DEFAULT_STOPP
 DEFAULT_STOPPING_SD = 0.03
 #: sigma of the log of the straggling scale's default lognormal prior (median 1)
 STRAGGLING_SIGMA = 0.3
+#: sd of the straggling correction's default normal prior, centred on the run's law (1 for
+#: Lindhard-Scharff, 0 for Bohr): the other law two standard deviations away
+STRAGGLING_CORRECTION_SD = 0.5
 
 
 class Role(enum.Enum):
@@ -71,6 +74,10 @@ class Role(enum.Enum):
     SLOPE = ("slope", -0.5, 0.5, "stopping_slope", True)
     #: one factor on every straggling variance, > 0
     STRAGGLING = ("straggling_scale", 0.0, None, "straggling_scale", False)
+    #: the exponent of the Lindhard-Scharff ratio in every straggling rate (1: that law, 0:
+    #: Bohr's), in (-2, 3): at least three prior standard deviations beyond either law, so
+    #: that the limits do not cut the prior (and the planning's Gaussian prior stays right)
+    STRAGGLING_CORRECTION = ("straggling_correction", -2.0, 3.0, "straggling_correction", False)
     #: background level (counts/channel), >= 0; target: 0 (flat or low end), 1 (high end)
     BACKGROUND = ("background", 0.0, None, None, False)
 
@@ -146,6 +153,8 @@ NUISANCES = (
                  lambda v, w: make_prior("lognormal", v, STRAGGLING_SIGMA)),
     NuisanceKind(Role.SLOPE, "slope.{element}", "",
                  lambda v, w: make_prior("normal", v, w[1])),
+    NuisanceKind(Role.STRAGGLING_CORRECTION, "straggling_correction", "",
+                 lambda v, w: make_prior("normal", v, STRAGGLING_CORRECTION_SD)),
 )
 #: names of the scalar nuisances (``stopping.<El>`` for every element comes on top)
 NUISANCE_NAMES = tuple(k.name for k in NUISANCES if not k.role.per_element)

@@ -379,12 +379,13 @@ def bind_fit(settings: FitSettings, columns, default_nuisance, widths=None, *,
                 "1e15 atoms/cm2", Role.AREAL_DENSITY, i,
                 lambda t0=t0: make_prior("uniform", 0.1 * t0, 3.0 * t0))
         n_if = len(layers) - 1 if substrate else len(layers)
+        # a width's default scale: a quarter of the films' total areal density, so that a thin
+        # layer (a marker) may spread far beyond its own thickness, as diffusion spreads it
+        films = sum(L.areal_density_1e15 for L in layers if not L.substrate)
         for i in range(n_if):
-            near = [layers[j].areal_density_1e15 for j in (i, i + 1)
-                    if j < len(layers) and not layers[j].substrate]
             available[f"{layers[i].name}.mixing"] = (
                 "1e15 atoms/cm2", Role.MIXING, i,
-                lambda s=0.25 * min(near): make_prior("halfnormal", s))
+                lambda s=0.25 * films: make_prior("halfnormal", s))
         for i, L in enumerate(layers):
             available[f"{L.name}.composition"] = ("", Role.SHARE, i, None)
     for kind in NUISANCES:
@@ -411,12 +412,17 @@ def bind_fit(settings: FitSettings, columns, default_nuisance, widths=None, *,
             # the stopping is trusted: its scales and its energy dependence
             expanded += [n for n in nuisance_like
                          if available[n][1] in (Role.STOPPING, Role.SLOPE)]
+        elif name == "straggling":
+            # the straggling law is trusted: its scale and its correction
+            expanded += [n for n in nuisance_like
+                         if available[n][1] in (Role.STRAGGLING, Role.STRAGGLING_CORRECTION)]
         elif name in nuisance_like:
             expanded.append(name)
         else:
             raise InputError(f"{name!r} is not a nuisance; nuisances: "
                              f"{', '.join(nuisance_like)} (or 'stopping' for every "
-                             "stopping scale and slope)",
+                             "stopping scale and slope, 'straggling' for the straggling "
+                             "scale and correction)",
                              where=where("fixed"))
     spec.fixed = tuple(expanded)
 
