@@ -65,7 +65,7 @@ charge_uC = 2.0
 TILTS = {"normal": 0.0, "tilt60": 60.0}
 #: calibration, resolution, straggling and the stopping slopes are held (a short test); the
 #: fluence of each spectrum and the stopping scales of Ta and Si stay free
-_HELD = ["gain_keV", "offset_keV", "fwhm_keV", "straggling_scale", "slope.Ta", "slope.Si"]
+_HELD = ["gain_keV", "offset_keV", "fwhm_keV", "straggling", "slope.Ta", "slope.Si"]
 
 
 def _joint_text(extra="", group=None):
