@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import emcee
 import numpy as np
+import pytest
 from scipy import stats
 
 from inversion.sample._moves import SubspaceDEMove
@@ -75,3 +76,25 @@ def test_gradient_polish_climbs_and_is_the_same_with_workers(toy):
     with worker_pool(obj, 2) as pool:
         pooled, logp2 = gradient_polish(obj, start, bounds, pool=pool, maxiter=40)
     assert np.array_equal(theta, pooled) and logp == logp2
+
+
+class _BreaksInWorkers:
+    """An objective whose forward model cannot be built (as in a worker missing a file)."""
+
+    @property
+    def model(self):
+        raise OSError("stopping table gone")
+
+    def log_posterior(self, theta):  # pragma: no cover - never reached
+        return 0.0
+
+
+def test_a_worker_that_cannot_build_its_objective_raises_in_the_parent():
+    # the pool's initializer must not fail: a failing initializer is restarted for ever and the
+    # parent waits on the first call; the error comes back with the call instead
+    from inversion.sample._workers import worker_log_posterior, worker_pool
+
+    with worker_pool(_BreaksInWorkers(), 2) as pool:
+        pending = pool.map_async(worker_log_posterior, [np.zeros(1)])
+        with pytest.raises(RuntimeError, match="could not build the objective.*stopping table"):
+            pending.get(timeout=120)

@@ -29,24 +29,37 @@ PENALTY = 1e30
 
 # ----- worker side: one objective per process, set by the pool initializer -----
 _WORKER_OBJECTIVE = None
+#: what went wrong while a worker built its objective: raised by every call instead (an
+#: initializer that raises makes the pool start a new worker, which fails the same way, for
+#: ever, while the parent waits)
+_WORKER_ERROR: str | None = None
 
 
 def _init_worker(blob: bytes):
-    global _WORKER_OBJECTIVE
+    global _WORKER_OBJECTIVE, _WORKER_ERROR
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
     release_inherited_locks()  # the parent's writer lock must die with the parent
-    _WORKER_OBJECTIVE = pickle.loads(blob)
-    _WORKER_OBJECTIVE.model  # build the forward model once, now
+    try:
+        _WORKER_OBJECTIVE = pickle.loads(blob)
+        _WORKER_OBJECTIVE.model  # build the forward model once, now
+    except Exception as exc:  # noqa: BLE001 - reported to the parent on the first call
+        _WORKER_ERROR = f"{type(exc).__name__}: {exc}"
+
+
+def _objective():
+    if _WORKER_ERROR is not None:
+        raise RuntimeError(f"a worker process could not build the objective ({_WORKER_ERROR})")
+    return _WORKER_OBJECTIVE
 
 
 def worker_log_posterior(theta):
     """The worker's objective's log-posterior."""
-    return _WORKER_OBJECTIVE.log_posterior(theta)
+    return _objective().log_posterior(theta)
 
 
 def worker_cost(theta):
     """The worker's objective's -log-posterior, :data:`PENALTY` outside the prior."""
-    value = _WORKER_OBJECTIVE.log_posterior(theta)
+    value = _objective().log_posterior(theta)
     return -value if np.isfinite(value) else PENALTY
 
 
