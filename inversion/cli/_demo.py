@@ -14,8 +14,8 @@ Run sondage on its bundled demo: an INVENTED sample (a Ti cap over a Co film on 
 interface mixed by an anneal) whose spectrum was simulated by sondage itself with counting
 noise.  The true values are in data/demo/TRUTH.md, so you can see how the posterior compares.
 
-The demo checks the run file and the spectrum, inverts the spectrum (about two minutes on two
-cores), writes the report, and prints where everything went.  Its output folder is the demo's
+The demo checks the run file and the spectrum, inverts the spectrum (a few minutes: 4000
+steps, 272 s on one busy core), writes the report, and prints where everything went.  Its output folder is the demo's
 own: an earlier demo result in it is replaced.
 
 examples:
