@@ -428,7 +428,9 @@ class ForwardModel:
         self._S, self._dS, self._d2S, self._W, self._dW = S, dS, d2S, W, dW
         #: the run's law as an exponent of the Lindhard-Scharff ratio (1 or 0)
         self.straggling_law_exponent = STRAGGLING_EXPONENTS[phys.straggling]
-        self._bohr, self._ls_ratio, self._ls_dlog = bohr, ratio, dlog
+        with np.errstate(divide="ignore"):
+            log_ratio = np.log(ratio)  # -inf where the ratio is 0 (never at table energies > 0)
+        self._bohr, self._ls_ratio, self._ls_log, self._ls_dlog = bohr, ratio, log_ratio, dlog
         self._corrected = (self.straggling_law_exponent, W, dW)
 
         screening = None if phys.screening == "none" else phys.screening
@@ -888,9 +890,7 @@ class ForwardModel:
                              where="nuisance: straggling_correction")
         if not self.straggling:
             return self._W, self._dW
-        with np.errstate(divide="ignore"):
-            log_ratio = np.log(self._ls_ratio)
-        W = np.where(self._ls_ratio > 0, self._bohr * np.exp(a * log_ratio),
+        W = np.where(self._ls_ratio > 0, self._bohr * np.exp(a * self._ls_log),
                      self._bohr if a == 0 else 0.0)
         dW = a * W * self._ls_dlog
         self._corrected = (a, W, dW)
