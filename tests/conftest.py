@@ -26,6 +26,8 @@ from inversion.results._schema import MCMC, QUANTILES
 from inversion.results._store import set_attrs, write_groups, write_input
 from inversion.results._summary import summarise
 
+from forward_runs import make_run as _make_run  # tests/ is on sys.path
+
 ROOT = Path(__file__).resolve().parents[1]
 #: NIST ASTAR/PSTAR tabulations (NIST Standard Reference Database 124, implementing ICRU Report
 #: 49), laid beside the project for tests only; see ../shared/refdata/README.md.
@@ -429,32 +431,7 @@ def build_result():
 
 # ----------------------------------------------------------------------------------------------
 # run files of the forward-model tests
-RUN_HEAD = """
-title = "invented test sample"
-[beam]
-ion = "4He"
-energy_keV = {energy}
-[geometry]
-scattering_deg = {theta}
-incidence_deg = {th1}
-exit_deg = {th2}
-[detector]
-fwhm_keV = {fwhm}
-solid_angle_msr = {omega}
-[calibration]
-keV_per_channel = {gain}
-offset_keV = {offset}
-quadratic_keV = {quad}
-[exposure]
-charge_uC = {charge}
-"""
-
-
-def _make_run(layers: str, *, energy=1800.0, theta=165.0, th1=0.0, th2=15.0, fwhm=16.0,
-              omega=2.5, gain=2.0, offset=50.0, quad=0.0, charge=5.0, physics: str = ""):
-    text = RUN_HEAD.format(energy=energy, theta=theta, th1=th1, th2=th2, fwhm=fwhm, omega=omega,
-                           gain=gain, offset=offset, quad=quad, charge=charge) + layers + physics
-    return forward.parse_run(text)
+# (the run text and the builder live in tests/forward_runs.py, shared with the test modules)
 
 
 @pytest.fixture(scope="session")
