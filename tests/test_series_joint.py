@@ -123,6 +123,7 @@ def test_series_file_of_a_joint_template(tmp_path):
         assert fragment in info.value.message and "\n" not in str(info.value)
 
 
+@pytest.mark.slow
 def test_series_over_a_joint_template(tmp_path):
     series = load_series(_write_series(tmp_path))
     out = tmp_path / "series.h5"
