@@ -19,7 +19,9 @@ Each measurement is checked as a run file of one measurement made of the shared 
 own (:func:`load_measurements` gives a :class:`forward.Run` per measurement, with every check of
 :func:`forward.load_run`); error locations name the measurement
 (``run.toml: measurement.tilt60.beam.energy_keV``).  A run file without ``[[measurement]]``
-tables is one measurement, exactly as before.
+tables is one measurement, exactly as before.  :meth:`MeasurementSet.with_overrides` gives the
+measurements other spectra and changed tables (a series member over a joint template), checked
+again the same way.
 """
 
 from __future__ import annotations
@@ -110,6 +112,54 @@ class MeasurementSet:
             if m.charge_group is not None:
                 out.setdefault(m.charge_group, []).append(m.name)
         return out
+
+    def with_overrides(self, changes=None, *, spectra=None, source: str | None = None
+                       ) -> "MeasurementSet":
+        """The measurements with some tables changed and other spectra, checked again.
+
+        Parameters
+        ----------
+        changes : mapping, optional
+            ``{measurement name: {table: {key: value}}}``, each measurement's changes applied
+            by :meth:`forward.Run.with_overrides` (checked exactly like a run file).
+        spectra : mapping, optional
+            ``{measurement name: spectrum}`` replacing the spectra the run file names
+            (``file.csv`` or ``file.h5:/dataset``; a relative path is taken from the run
+            file's folder).
+        source : str, optional
+            Where the changes come from, for messages (default: the run file); a
+            measurement's errors are located at ``<source>.measurement.<name>``.
+
+        Raises
+        ------
+        InputError
+            A name that is no measurement's, a bad key or value, members of a charge group
+            left with different beams or exposures.
+        """
+        changes, spectra = dict(changes or {}), dict(spectra or {})
+        where = source or self.source
+        for name in [*changes, *spectra]:
+            if name not in self.names:
+                raise InputError(f"no measurement called {name!r}; measurements: "
+                                 f"{', '.join(self.names)}", where=where)
+        out = []
+        for m in self.measurements:
+            here = f"{where}.measurement.{m.name}" if source else \
+                f"{self.source}: measurement.{m.name}"
+            run = m.run.with_overrides(changes[m.name], source=here) if changes.get(m.name) \
+                else m.run
+            new = dataclasses.replace(m, run=run)
+            if m.name in spectra:
+                text = spectra[m.name]
+                text = str(text) if isinstance(text, Path) else text
+                new = dataclasses.replace(new, spectrum=_spectrum_path(
+                    text, m.run.base_dir or Path.cwd(), here), spectrum_text=text)
+            out.append(new)
+        found = dataclasses.replace(self, measurements=tuple(out))
+        located = (lambda name: f"{where}.measurement.{name}") if source else None
+        _check_ions(found, located)
+        _check_groups(found, located)
+        return found
 
 
 def load_measurements(path) -> MeasurementSet:
@@ -206,13 +256,7 @@ def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> Me
         spectrum_text = table.get("spectrum")
         spectrum = None
         if spectrum_text is not None:
-            if not isinstance(spectrum_text, str) or not spectrum_text.strip():
-                raise InputError(f"expected the path of a spectrum file in quotes, got "
-                                 f"{_kind(spectrum_text)}", where=f"{here}.spectrum")
-            file_part = spectrum_text.split(":/", 1)[0] if ".h5:" in spectrum_text \
-                or ".hdf5:" in spectrum_text else spectrum_text
-            spectrum = (base / file_part).resolve() if not Path(file_part).is_absolute() \
-                else Path(file_part)
+            spectrum = _spectrum_path(spectrum_text, base, f"{here}.spectrum")
         group = table.get("charge_group")
         if group is not None and (not isinstance(group, str) or not _NAME.match(group)):
             raise InputError(f"expected a name of 1 to 40 letters, digits, '_' or '-', got "
@@ -227,17 +271,33 @@ def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> Me
         except InputError as exc:
             raise _located(exc, source, name) from None
         out.append(Measurement(name, run, spectrum, spectrum_text, group, windows))
-    first = out[0]
-    for m in out[1:]:
+    found = MeasurementSet(tuple(out), source, text, True)
+    _check_ions(found)
+    _check_groups(found)
+    return found
+
+
+def _spectrum_path(text: str, base: Path, where: str) -> Path:
+    """The file of a spectrum as a run file names it (``file.h5:/dataset`` gives the file)."""
+    if not isinstance(text, str) or not text.strip():
+        raise InputError(f"expected the path of a spectrum file in quotes, got {_kind(text)}",
+                         where=where)
+    file_part = text.split(":/", 1)[0] if ".h5:" in text or ".hdf5:" in text else text
+    return (base / file_part).resolve() if not Path(file_part).is_absolute() \
+        else Path(file_part)
+
+
+def _check_ions(found: MeasurementSet, located=None) -> None:
+    """One ion in every measurement: the stopping and straggling nuisances are shared."""
+    first = found.measurements[0]
+    for m in found.measurements[1:]:
         if m.run.beam.species != first.run.beam.species:
+            where = located(m.name) if located else \
+                f"{found.source}: measurement.{m.name}.beam.ion"
             raise InputError(f"measurement {m.name!r} uses {m.run.beam.species} but "
                              f"{first.name!r} {first.run.beam.species}; the stopping and "
                              "straggling nuisances are shared, so allowed: one ion in every "
-                             "measurement (the beam energy may differ)",
-                             where=f"{source}: measurement.{m.name}.beam.ion")
-    found = MeasurementSet(tuple(out), source, text, True)
-    _check_groups(found)
-    return found
+                             "measurement (the beam energy may differ)", where=where)
 
 
 def resolve_spectrum(measurement: Measurement) -> str | None:
@@ -263,8 +323,11 @@ def _located(exc: InputError, source: str, name: str) -> InputError:
     return InputError(f"{exc.message} (measurement {name!r})", where=exc.where)
 
 
-def _check_groups(found: MeasurementSet) -> None:
-    """A charge group joins two or more measurements of one exposure: same charge and beam."""
+def _check_groups(found: MeasurementSet, located=None) -> None:
+    """A charge group joins two or more measurements of one exposure: same charge and beam.
+
+    ``located(name)``, when given, locates a mismatch left by changes made elsewhere
+    (:meth:`MeasurementSet.with_overrides`)."""
     source = found.source
     by_name = {m.name: m for m in found.measurements}
     for group, names in found.groups().items():
@@ -279,8 +342,10 @@ def _check_groups(found: MeasurementSet) -> None:
             run = by_name[other].run
             if (dataclasses.astuple(run.exposure) != dataclasses.astuple(first.exposure)
                     or run.beam != first.beam):
+                allowed = ("the same changes of the beam and exposure for every member of the "
+                           "charge group" if located else "the same [measurement.beam] and "
+                           "[measurement.exposure] in every member of a charge group")
                 raise InputError(f"measurements {names[0]!r} and {other!r} share charge group "
-                                 f"{group!r} but not one beam and exposure; allowed: the same "
-                                 "[measurement.beam] and [measurement.exposure] in every "
-                                 "member of a charge group",
-                                 where=f"{source}: measurement.{other}.charge_group")
+                                 f"{group!r} but not one beam and exposure; allowed: {allowed}",
+                                 where=located(other) if located else
+                                 f"{source}: measurement.{other}.charge_group")

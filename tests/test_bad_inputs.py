@@ -115,6 +115,11 @@ def test_valid_corpus_inputs_are_accepted(capsys):
 
     series = load_series(CORPUS / "_valid_series.toml")
     assert [m.label for m in series.members] == ["asdep", "a700"]
+    joint = load_series(CORPUS / "_valid_joint_series.toml")
+    assert joint.measurement_names == ("front", "repeat")
+    assert [list(m.spectra) for m in joint.members] == [["front", "repeat"]] * 2
+    assert joint.members[1].measurement_overrides == {
+        "repeat": {"exposure": {"charge_uC": 8.0}, "calibration": {"offset_keV": 35.0}}}
     capsys.readouterr()
 
 

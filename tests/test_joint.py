@@ -146,6 +146,37 @@ def test_every_measurement_uses_one_ion():
     assert "one ion in every measurement" in err.value.message
 
 
+def test_measurements_with_other_spectra_and_overrides(world, tmp_path):
+    # what a series member over a joint template does to it (inversion/series)
+    found = forward.load_measurements(world / "joint.toml")
+    other = found.with_overrides({"tilt60": {"exposure": {"charge_uC": 3.0}}},
+                                 spectra={"normal": str(tmp_path / "n.csv"),
+                                          "tilt60": "t.h5:/counts"}, source="s.toml: member[a]")
+    normal, tilt = other.measurements
+    assert tilt.run.exposure.charge_uC == 3.0 and normal.run.exposure.charge_uC == 2.0
+    assert normal.spectrum == tmp_path / "n.csv" and tilt.spectrum == (world / "t.h5").resolve()
+    assert forward.resolve_spectrum(tilt) == f"{(world / 't.h5').resolve()}:/counts"
+    assert found.measurements[1].run.exposure.charge_uC == 2.0  # the template is unchanged
+    with pytest.raises(InputError) as err:
+        found.with_overrides({"tilt60": {"calibration": {"keV_per_channel": -1.0}}},
+                             source="s.toml: member[a]")
+    assert str(err.value).startswith("s.toml: member[a].measurement.tilt60: "
+                                     "calibration.keV_per_channel")
+    with pytest.raises(InputError, match="no measurement called 'side'"):
+        found.with_overrides(spectra={"side": "s.csv"})
+    # members of a charge group keep one exposure
+    grouped = forward.parse_measurements(_joint_text(group="run1"), source="g.toml",
+                                         base_dir=world)
+    with pytest.raises(InputError) as err:
+        grouped.with_overrides({"tilt60": {"exposure": {"charge_uC": 3.0}}},
+                               source="s.toml: member[a]")
+    assert err.value.where == "s.toml: member[a].measurement.tilt60"
+    assert "share charge group 'run1'" in err.value.message
+    both = {n: {"exposure": {"charge_uC": 3.0}} for n in TILTS}
+    assert [m.run.exposure.charge_uC for m in grouped.with_overrides(both).measurements] == \
+        [3.0, 3.0]
+
+
 def test_per_measurement_fit_keys_go_to_their_measurement():
     fit = {"free": {"film.areal_density": True, "fluence_scale@a": {"normal": [1.0, 0.1]},
                     "gain_keV@b": True}, "fixed": ["offset_keV@a", "stopping"]}

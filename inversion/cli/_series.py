@@ -16,14 +16,14 @@ HELP = "invert an annealing series and fit diffusion coefficients and the Arrhen
 
 DESCRIPTION = """\
 Invert every member of an annealing series (one spectrum per anneal plus the as-deposited
-sample), then compute the posterior of the diffusion coefficient D = (w^2 - w0^2) / (2 t) of
-one interface for each anneal, the Arrhenius law D = D0 exp(-Ea / kT), and comparisons of
-neighbouring members.  Each member's full result is kept in SERIES.members/LABEL.h5 next to
+sample; one per measurement when the template has [[measurement]] tables), then compute the
+posterior of the diffusion coefficient D = (w^2 - w0^2) / (2 t) of one interface for each
+anneal, the Arrhenius law D = D0 exp(-Ea / kT), and comparisons of neighbouring members.  Each member's full result is kept in SERIES.members/LABEL.h5 next to
 the output file, linked from it; figures and summary.md go to SERIES.report/.
 
-Before any worker starts, every member passes the checks of 'sondage check' and its spectrum
-must hold the chosen interface's signal; a member that fails stops the series with one line
-naming it and its spectrum (exit code 2).
+Before any worker starts, every member passes the checks of 'sondage check' and each of its
+spectra must hold the chosen interface's signal; a member that fails stops the series with one
+line naming it and its spectrum (exit code 2).
 
 examples:
   sondage series anneals.toml -o anneals.h5

@@ -21,6 +21,18 @@ series (our own schema; README.md, "Annealing series")::
     time_min = 30                             # or time_s, time_h
     charge_uC = 11.8                          # optional overrides of the template
     calibration = { offset_keV = 21.0 }
+
+A template with ``[[measurement]]`` tables (a joint run) makes every member a joint run: the
+member names one spectrum per measurement, and its overrides belong to one measurement::
+
+    [[member]]
+    label = "a350-30"
+    spectra = { normal = "a350_normal.csv", tilt60 = "a350_tilt60.csv" }
+    temperature_C = 350
+    time_min = 30
+    [member.measurement.tilt60]               # optional overrides of this measurement
+    charge_uC = 9.6
+    calibration = { offset_keV = 21.0 }
 """
 
 from __future__ import annotations
@@ -28,19 +40,23 @@ from __future__ import annotations
 import math
 import re
 import tomllib
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import forward
 from forward import InputError
 
-__all__ = ["Member", "Series", "load_series", "parse_series", "member_run", "interface_names",
-           "member_path"]
+__all__ = ["Member", "Series", "load_series", "parse_series", "member_run",
+           "member_measurements", "joint_member", "interface_names", "member_path"]
 
 _LABEL = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 _SERIES_KEYS = ("title", "run", "interface", "widths_in", "max_steps", "arrhenius_scatter")
-_MEMBER_KEYS = ("label", "spectrum", "as_deposited", "temperature_C", "temperature_K",
-                "time_s", "time_min", "time_h", "charge_uC", "particles", "calibration")
+_MEMBER_KEYS = ("label", "spectrum", "spectra", "as_deposited", "temperature_C",
+                "temperature_K", "time_s", "time_min", "time_h", "charge_uC", "particles",
+                "calibration", "measurement")
+#: what a member may change in the template (in ``[member.measurement.<name>]`` for a joint one)
+_OVERRIDE_KEYS = ("charge_uC", "particles", "calibration")
 _TOP_KEYS = ("series", "member")
 _CELSIUS_OFFSET_K = 273.15  # exact, by definition of the Celsius scale (SI Brochure)
 
@@ -53,24 +69,38 @@ class Member:
     Attributes
     ----------
     label : str
-    spectrum : str
-        Path of the spectrum (absolute) or ``file.h5:/dataset``.
+    spectrum : str or None
+        Path of the spectrum (absolute) or ``file.h5:/dataset``; None for a member of a joint
+        template.
     as_deposited : bool
     temperature_K, time_s : float or None
         Anneal temperature (K) and time (s); None for the as-deposited member.
     overrides : dict
-        Run-file tables to change for this member (``exposure``, ``calibration``).
+        Run-file tables to change for this member (``exposure``, ``calibration``); empty for
+        a member of a joint template.
     index : int
         Position in the series file (0-based).
+    spectra : dict
+        A member of a joint template: ``{measurement name: spectrum}`` (absolute paths, in
+        the template's order); empty otherwise.
+    measurement_overrides : dict
+        A member of a joint template: ``{measurement name: run-file tables to change}``.
     """
 
     label: str
-    spectrum: str
+    spectrum: str | None
     as_deposited: bool
     temperature_K: float | None
     time_s: float | None
     overrides: dict
     index: int
+    spectra: dict = field(default_factory=dict)
+    measurement_overrides: dict = field(default_factory=dict)
+
+    @property
+    def spectrum_files(self) -> dict:
+        """``{what: spectrum}``: ``"spectrum"``, or each measurement's name."""
+        return dict(self.spectra) if self.spectra else {"spectrum": self.spectrum}
 
 
 @dataclass(frozen=True)
@@ -87,6 +117,14 @@ class Series:
     max_steps: int | None
     arrhenius_scatter: bool
     members: tuple = field(default_factory=tuple)
+    #: the template's measurements (a template with ``[[measurement]]`` tables); empty for a
+    #: template of one measurement
+    measurement_names: tuple = field(default_factory=tuple)
+
+    @property
+    def joint(self) -> bool:
+        """True when the template is a joint run (every member names several spectra)."""
+        return bool(self.measurement_names)
 
     @property
     def anneals(self) -> list:
@@ -187,11 +225,7 @@ def parse_series(text: str, source: str = "<string>", base_dir=None) -> Series:
     if not run_path.is_file():
         raise InputError(f"run-file template {s['run']!r} not found (looked in {base})",
                          where=f"{source}: series.run")
-    if _has_measurements(run_path):
-        raise InputError(f"run-file template {s['run']!r} holds [[measurement]] tables; a "
-                         "series member of several spectra is not supported yet; allowed: a "
-                         "template of one measurement (invert a joint run on its own with "
-                         "sondage invert RUN.toml -o RESULT.h5)", where=f"{source}: series.run")
+    names = _template_measurements(run_path)
     interface = s.get("interface", 1)
     if isinstance(interface, bool) or not isinstance(interface, int) or interface < 1:
         raise InputError(f"expected a whole number >= 1 (interface N lies below layer N), got "
@@ -227,13 +261,23 @@ def parse_series(text: str, source: str = "<string>", base_dir=None) -> Series:
                              where=f"{where}.label")
         labels.add(label)
         where = f"{source}: member[{label}]"
-        spec = m.get("spectrum")
-        if not isinstance(spec, str):
-            raise InputError(f"missing spectrum path; give spectrum = \"file.csv\"",
-                             where=f"{where}.spectrum")
-        file_part, sep, dataset = spec.partition(".h5:")
-        spectrum = str((base / (file_part + (".h5" if sep else ""))).resolve()) + (
-            ":" + dataset if sep else "")
+        if names:
+            spectrum = None
+            spectra = _member_spectra(m, names, base, where, s["run"])
+        else:
+            for key in ("spectra", "measurement"):
+                if key in m:
+                    raise InputError(
+                        f"the run-file template {s['run']!r} is one measurement (it has no "
+                        "[[measurement]] tables); allowed: spectrum = \"file.csv\" and the "
+                        f"overrides {', '.join(_OVERRIDE_KEYS)} in the [[member]] table ({key} "
+                        "belongs to a member of a template with [[measurement]] tables)",
+                        where=f"{where}.{key}")
+            spec = m.get("spectrum")
+            if not isinstance(spec, str):
+                raise InputError(f"missing spectrum path; give spectrum = \"file.csv\"",
+                                 where=f"{where}.spectrum")
+            spectrum, spectra = _resolve(base, spec), {}
         as_dep = m.get("as_deposited", False)
         if not isinstance(as_dep, bool):
             raise InputError(f"expected true or false, got {_kind(as_dep)}",
@@ -263,39 +307,114 @@ def parse_series(text: str, source: str = "<string>", base_dir=None) -> Series:
                 t_k = _number(m, "temperature_K", f"{where}.temperature_K")
             scale = {"time_s": 1.0, "time_min": 60.0, "time_h": 3600.0}[times[0]]
             t_s = _number(m, times[0], f"{where}.{times[0]}") * scale
-        overrides: dict = {}
-        if "charge_uC" in m and "particles" in m:
-            raise InputError("give charge_uC or particles, not both", where=f"{where}.particles")
-        for key in ("charge_uC", "particles"):
-            if key in m:
-                overrides.setdefault("exposure", {})[key] = _number(m, key, f"{where}.{key}")
-        if "calibration" in m:
-            if not isinstance(m["calibration"], dict):
-                raise InputError(f"expected a table such as {{ offset_keV = 20.0 }}, got "
-                                 f"{_kind(m['calibration'])}", where=f"{where}.calibration")
-            overrides["calibration"] = dict(m["calibration"])
+        per_measurement = _measurement_overrides(m, names, where) if names else {}
+        overrides = {} if names else _overrides(m, where)
         members.append(Member(label=label, spectrum=spectrum, as_deposited=as_dep,
-                              temperature_K=t_k, time_s=t_s, overrides=overrides, index=i))
+                              temperature_K=t_k, time_s=t_s, overrides=overrides, index=i,
+                              spectra=spectra, measurement_overrides=per_measurement))
     n_ref = sum(m.as_deposited for m in members)
     if n_ref != 1:
         raise InputError(f"{n_ref} members have as_deposited = true; a series needs exactly one",
                          where=f"{source}: member")
     return Series(source=source, text=text, base_dir=base, run_path=run_path,
                   title=str(s.get("title", "")), interface=interface, widths_in=widths_in,
-                  max_steps=max_steps, arrhenius_scatter=scatter, members=tuple(members))
+                  max_steps=max_steps, arrhenius_scatter=scatter, members=tuple(members),
+                  measurement_names=names)
 
 
-def _has_measurements(path) -> bool:
-    """True for a run file with ``[[measurement]]`` tables (a joint run); a file that does
-    not parse is left to the run-file reader's own message."""
-    try:
-        return "measurement" in tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError, OSError):
-        return False
+def _template_measurements(path) -> tuple:
+    """The measurements' names of a template with ``[[measurement]]`` tables, read and checked
+    (a broken template refused with the run-file reader's own message); () for a template of
+    one measurement (read when the series runs)."""
+    if not forward.has_measurements(path):
+        return ()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the template's warnings: said when the series runs
+        return tuple(forward.load_measurements(path).names)
+
+
+def _resolve(base: Path, spec: str) -> str:
+    """A spectrum path of the series file, absolute (``file.h5:/dataset`` kept whole)."""
+    file_part, sep, dataset = spec.partition(".h5:")
+    return str((base / (file_part + (".h5" if sep else ""))).resolve()) + (
+        ":" + dataset if sep else "")
+
+
+def _member_spectra(m: dict, names, base: Path, where: str, template: str) -> dict:
+    """A joint member's ``spectra`` table: every measurement of the template named once."""
+    example = "spectra = { " + ", ".join(f'{n} = "{n}.csv"' for n in names) + " }"
+    if "spectrum" in m:
+        raise InputError(f"the run-file template {template!r} holds {len(names)} measurements "
+                         f"({', '.join(names)}), so a member names one spectrum for each; "
+                         f"allowed: {example} instead of spectrum", where=f"{where}.spectrum")
+    table = m.get("spectra")
+    if table is None:
+        raise InputError(f"missing spectra; give {example}, one spectrum for each measurement "
+                         f"of the run-file template {template!r}", where=f"{where}.spectra")
+    if not isinstance(table, dict):
+        raise InputError(f"expected a table such as {example}, got {_kind(table)}",
+                         where=f"{where}.spectra")
+    for key, value in table.items():
+        if key not in names:
+            raise InputError(f"the run-file template {template!r} has no measurement called "
+                             f"{key!r}; allowed: {', '.join(names)}",
+                             where=f"{where}.spectra.{key}")
+        if not isinstance(value, str) or not value.strip():
+            raise InputError(f"expected the path of a spectrum file in quotes, got "
+                             f"{_kind(value)}", where=f"{where}.spectra.{key}")
+    missing = [n for n in names if n not in table]
+    if missing:
+        raise InputError(f"no spectrum for measurement {missing[0]!r}; allowed: spectra naming "
+                         f"every measurement of the run-file template {template!r} once "
+                         f"({', '.join(names)})", where=f"{where}.spectra")
+    return {n: _resolve(base, table[n]) for n in names}
+
+
+def _overrides(table: dict, where: str) -> dict:
+    """The run-file tables a member (or one measurement of a joint member) changes."""
+    overrides: dict = {}
+    if "charge_uC" in table and "particles" in table:
+        raise InputError("give charge_uC or particles, not both", where=f"{where}.particles")
+    for key in ("charge_uC", "particles"):
+        if key in table:
+            overrides.setdefault("exposure", {})[key] = _number(table, key, f"{where}.{key}")
+    if "calibration" in table:
+        if not isinstance(table["calibration"], dict):
+            raise InputError(f"expected a table such as {{ offset_keV = 20.0 }}, got "
+                             f"{_kind(table['calibration'])}", where=f"{where}.calibration")
+        overrides["calibration"] = dict(table["calibration"])
+    return overrides
+
+
+def _measurement_overrides(m: dict, names, where: str) -> dict:
+    """A joint member's ``[member.measurement.<name>]`` tables; overrides of the whole member
+    are refused (each measurement has its own detector, calibration and charge)."""
+    for key in _OVERRIDE_KEYS:
+        if key in m:
+            raise InputError(f"{key} of a member of a template with [[measurement]] tables "
+                             "belongs to one measurement; allowed: [member.measurement.<name>] "
+                             f"with {', '.join(_OVERRIDE_KEYS)}, for a measurement among "
+                             f"{', '.join(names)}", where=f"{where}.{key}")
+    tables = m.get("measurement", {})
+    if not isinstance(tables, dict):
+        raise InputError(f"expected tables [member.measurement.<name>], got {_kind(tables)}",
+                         where=f"{where}.measurement")
+    out = {}
+    for name, table in tables.items():
+        here = f"{where}.measurement.{name}"
+        if name not in names:
+            raise InputError(f"the run-file template has no measurement called {name!r}; "
+                             f"allowed: {', '.join(names)}", where=here)
+        _check_keys(table, _OVERRIDE_KEYS, here, f"[member.measurement.{name}]")
+        found = _overrides(table, here)
+        if found:
+            out[name] = found
+    return out
 
 
 def member_run(series: Series, member: Member):
-    """The template run with the member's overrides, checked like a run file."""
+    """The template run with the member's overrides, checked like a run file (a member of a
+    template of one measurement; see :func:`member_measurements` for a joint one)."""
     run = forward.load_run(series.run_path)
     if member.overrides:
         run = run.with_overrides(member.overrides,
@@ -303,10 +422,24 @@ def member_run(series: Series, member: Member):
     return run
 
 
+def member_measurements(series: Series, member: Member):
+    """A joint member as a :class:`forward.MeasurementSet`: the template's measurements with
+    the member's spectra and per-measurement overrides, checked like a run file."""
+    return joint_member(series.run_path, member.spectra, member.measurement_overrides,
+                        source=f"{series.source}: member[{member.label}]")
+
+
+def joint_member(run_path, spectra: dict, overrides: dict, *, source: str):
+    """The template's measurements with a member's spectra and overrides (what a worker
+    builds from its payload); errors are located at ``<source>.measurement.<name>``."""
+    return forward.load_measurements(run_path).with_overrides(overrides, spectra=spectra,
+                                                              source=source)
+
 
 def interface_names(series: Series):
     """Names of the chosen interface's mixing width in a member's result: (nm, 1e15)."""
-    run = forward.load_run(series.run_path)
+    run = forward.load_measurements(series.run_path).first if series.joint else \
+        forward.load_run(series.run_path)
     layers = run.layers
     if series.interface > len(layers) - 1:
         raise InputError(f"interface {series.interface} does not exist: the run file has "

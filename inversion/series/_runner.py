@@ -4,7 +4,9 @@ result file, then the statistics and the report.
 Member k (0-based, in file order) uses seed ``seed + 1000 k``; its result file is
 ``<series stem>.members/<label>.h5``.  Each member is one task submitted with ``retries=2``: a
 worker that dies loses nothing that was written; its task runs again elsewhere and resumes
-the member's own file.
+the member's own file.  A member of a template with ``[[measurement]]`` tables is a joint run:
+its spectra and per-measurement overrides go into the template's measurements, and it is
+inverted as ``sondage invert RUN.toml -o RESULT.h5`` inverts a joint run.
 """
 
 from __future__ import annotations
@@ -20,7 +22,8 @@ from forward import InputError
 
 from ..results._outputs import WriterLock, check_output, spectrum_file
 from ..results._store import read_head
-from ._file import Series, interface_names, member_path, member_run
+from ._file import (Series, interface_names, joint_member, member_measurements, member_path,
+                    member_run)
 from ._seriesfile import set_series_attrs, write_members, write_statistics
 from ._statistics import series_statistics
 
@@ -68,10 +71,10 @@ def _interface_channels(series: Series, run, where: str):
     return first, last, low, high
 
 
-def _check_coverage(series: Series, member, loaded) -> None:
+def _check_coverage(series: Series, member, loaded, where: str | None = None) -> None:
     """Refuse a member whose spectrum does not hold the chosen interface's signal; one line
-    naming the member and the file."""
-    where = f"{series.source}: member[{member.label}]"
+    naming the member (and the measurement, ``where``) and the file."""
+    where = where or f"{series.source}: member[{member.label}]"
     spectrum = loaded.spectrum
     first, last, low, high = _interface_channels(series, loaded.run, where)
     have_first, have_last = int(spectrum.channel[0]), int(spectrum.channel[-1])
@@ -95,7 +98,8 @@ def invert_member(payload: dict) -> dict:
     ----------
     payload : dict
         ``label``, ``run_path``, ``overrides``, ``where``, ``spectrum``, ``member_path``,
-        ``seed``, ``max_steps``.
+        ``seed``, ``max_steps``; for a member of a joint template ``spectra`` and
+        ``measurement_overrides`` (``spectrum`` None).
 
     Returns
     -------
@@ -111,9 +115,14 @@ def invert_member(payload: dict) -> dict:
         # warnings go back to the process that prints them (never raw from a worker)
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            run = forward.load_run(payload["run_path"])
-            if payload["overrides"]:
-                run = run.with_overrides(payload["overrides"], source=payload["where"])
+            if payload.get("spectra"):  # a joint run: the spectra named in its measurements
+                run = joint_member(payload["run_path"], payload["spectra"],
+                                   payload.get("measurement_overrides") or {},
+                                   source=payload["where"])
+            else:
+                run = forward.load_run(payload["run_path"])
+                if payload["overrides"]:
+                    run = run.with_overrides(payload["overrides"], source=payload["where"])
             out.parent.mkdir(parents=True, exist_ok=True)
             invert(run, payload["spectrum"], out, seed=int(payload["seed"]),
                    max_steps=payload["max_steps"], resume=state == "partial",
@@ -130,7 +139,9 @@ def _payloads(series: Series, output: Path, seed: int, max_steps, accept_calibra
     for m in series.members:
         out.append({"label": m.label, "run_path": str(series.run_path),
                     "overrides": m.overrides, "where": f"{series.source}: member[{m.label}]",
-                    "spectrum": m.spectrum, "member_path": str(member_path(output, m.label)),
+                    "spectrum": m.spectrum, "spectra": dict(m.spectra),
+                    "measurement_overrides": m.measurement_overrides,
+                    "member_path": str(member_path(output, m.label)),
                     "seed": int(seed) + 1000 * m.index,
                     "max_steps": max_steps if max_steps is not None else series.max_steps,
                     "accept_calibration": bool(accept_calibration)})
@@ -171,8 +182,9 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
     arrhenius_steps : int
         emcee steps of the Arrhenius fit.
     check_inputs : bool
-        Check every member's run overrides and spectrum here before submitting: the checks
-        of ``sondage check``, and that the spectrum holds the chosen interface's signal.
+        Check every member's run overrides and spectrum (every measurement's, for a joint
+        template) here before submitting: the checks of ``sondage check``, and that each
+        spectrum holds the chosen interface's signal.
     accept_calibration : bool
         Go on past the pre-flight calibration errors of any member (recorded in its file).
 
@@ -192,9 +204,12 @@ def run_series(series: Series, output, *, scheduler: str | None = None, workers:
         raise InputError(f"seed {seed} is too large for {len(series.members)} members (member "
                          f"k uses seed + 1000 k); allowed: 0 to {SEED_MAX}", where="--seed")
 
-    inputs = {"series file": series.source, "run-file template": series.run_path,
-              **{f"spectrum of member {m.label}": spectrum_file(m.spectrum)
-                 for m in series.members}}
+    inputs = {"series file": series.source, "run-file template": series.run_path}
+    for m in series.members:
+        for name, spectrum in m.spectrum_files.items():
+            what = f"spectrum of member {m.label}" + (f", measurement {name}" if m.spectra
+                                                      else "")
+            inputs[what] = spectrum_file(spectrum)
     check_output(output, inputs=inputs, force=True, resume=True, kind="series file")
     if output.exists() and not (resume or force):
         raise InputError("series file exists; add --resume to continue it or --force to replace "
@@ -216,26 +231,36 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
     if check_inputs:
         # everything a member's inversion would refuse, refused here, before any cluster starts
         # (one clear error instead of worker failures and a lost run)
-        from .._api import prepare
+        from .._api import prepare, prepare_joint
         from .._inputs import load_inputs, preflight_inputs, replay_warnings
+        from .._joint import load_joint, preflight_joint
 
         name_nm, name_areal = interface_names(series)
         told = set()
         for m in series.members:
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
-                run_m = member_run(series, m)
-                loaded = load_inputs(run_m, m.spectrum, replay=False)
+                if m.spectra:  # a joint member: every measurement's run and spectrum
+                    found_m = member_measurements(series, m)
+                    joint = load_joint(found_m, spectra=list(m.spectra.values()))
+                    loaded_all = joint.inputs
+                else:
+                    run_m = member_run(series, m)
+                    loaded_all = [load_inputs(run_m, m.spectrum, replay=False)]
             # each reader's warning once, not once per member
             replay_warnings([w for w in caught if str(w.message) not in told])
             told |= {str(w.message) for w in caught}
-            loaded.load_warnings = list(caught)
+            if not m.spectra:
+                loaded_all[0].load_warnings = list(caught)
             if task not in (None, invert_member):  # a stand-in task: no inversion to check
                 continue
             where = f"{series.source}: member[{m.label}]"
-            _check_coverage(series, m, loaded)
+            for name, loaded in zip(m.spectra or ["spectrum"], loaded_all):
+                _check_coverage(series, m, loaded,
+                                where=f"{where}.spectra.{name}" if m.spectra else where)
             try:
-                _, objective = prepare(loaded.run, loaded.spectrum)
+                objective = prepare_joint(joint) if m.spectra else \
+                    prepare(loaded_all[0].run, loaded_all[0].spectrum)[1]
             except InputError as exc:
                 raise InputError(str(exc), where=where) from None
             spec = objective.spec
@@ -248,7 +273,10 @@ def _run_series_locked(series, output, *, scheduler, workers, resume, force, see
             with warnings.catch_warnings(record=True) as found:
                 warnings.simplefilter("always")
                 try:
-                    preflight_inputs(loaded, accept_calibration=accept_calibration)
+                    if m.spectra:
+                        preflight_joint(joint, accept_calibration=accept_calibration)
+                    else:
+                        preflight_inputs(loaded_all[0], accept_calibration=accept_calibration)
                 except InputError as exc:
                     raise InputError(str(exc), where=where) from None
             replay_warnings([w for w in found if str(w.message) not in told])
