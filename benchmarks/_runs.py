@@ -2,8 +2,8 @@
 [exposure]), shared by the benchmarks and the tests so that each writes only its sample.
 
 Import it as ``benchmarks._runs`` with the repository root on the module search path (the
-benchmarks put it there after taking their own folder off; the tests have it through the
-editable install or ``python -m pytest`` from the root).  The defaults are an invented set-up
+benchmarks put it there after taking their own folder off; pytest puts it there for the tests,
+``pythonpath`` in pyproject.toml).  The defaults are an invented set-up
 (4He at 2000 keV, 165 degrees, a 15 keV detector of 3 msr, 2 keV per channel from 20 keV), the
 values most of the invented scenarios use; none is a real measurement.
 """
