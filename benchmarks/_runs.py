@@ -12,7 +12,16 @@ from __future__ import annotations
 
 import json
 
-__all__ = ["run_head"]
+__all__ = ["run_head", "MO_ON_CARBON"]
+
+#: run_head's keywords (all but the charge) for the calibration study's invented scenario, a
+#: molybdenum film on glassy carbon: benchmarks/coverage.py and its fast version in
+#: tests/test_coverage.py
+MO_ON_CARBON = dict(title="invented: Mo film on glassy carbon, mixed interface",
+                    live_fraction=0.95,
+                    note="INVENTED scenario for the calibration study (not a real sample, not a "
+                         "measurement):\na molybdenum film on glassy carbon whose Mo/C interface "
+                         "has mixed.")
 
 
 def run_head(*, title: str, charge_uC, energy_keV=2000.0, scattering_deg=165.0,

@@ -61,11 +61,11 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 import forward  # noqa: E402
-from benchmarks._runs import run_head  # noqa: E402
+from benchmarks._runs import MO_ON_CARBON, run_head  # noqa: E402
 from inversion import (NotConvergedWarning, Role, cramer_rao_sd, fisher_matrix,  # noqa: E402
                        invert, nominal_theta, prepare)
 
-__all__ = ["scenario_head", "run_text", "scenario_objective", "simulate_counts", "run_replica",
+__all__ = ["run_text", "scenario_objective", "simulate_counts", "run_replica",
            "coverage_summary", "expected_coverage_given_draws", "main", "TRUTH", "QUANTITIES"]
 
 #: the invented truth of the film (1e15 atoms/cm2)
@@ -76,8 +76,7 @@ CHANNELS = 1024
 CHARGE_UC = 2.0
 WINDOW = (760, 890)
 
-#: the sample and the fit; scenario_head() writes the run file's head (beam, geometry,
-#: detector, calibration, exposure)
+#: the sample and the fit; run_text puts the run file's head (MO_ON_CARBON) above them
 _RUN = """\
 [[layer]]
 name = "film"
@@ -101,16 +100,6 @@ windows = [[{first}, {last}]]
 """
 
 
-def scenario_head(charge_uC: float) -> str:
-    """The scenario's run file up to its first layer: the invented set-up of every study
-    (tests/test_coverage.py uses it too), with a beam charge of ``charge_uC`` microcoulomb."""
-    return run_head(title="invented: Mo film on glassy carbon, mixed interface",
-                    charge_uC=float(charge_uC), live_fraction=0.95,
-                    note="INVENTED scenario for the calibration study (not a real sample, not "
-                         "a measurement):\na molybdenum film on glassy carbon whose Mo/C "
-                         "interface has mixed.")
-
-
 def run_text(charge_uC: float = CHARGE_UC, *, fixed=(), stopping_scale_Mo: float | None = None,
              window=WINDOW, fit_extra: str = "") -> str:
     """The scenario's run file text.
@@ -131,9 +120,9 @@ def run_text(charge_uC: float = CHARGE_UC, *, fixed=(), stopping_scale_Mo: float
     physics = ("" if stopping_scale_Mo is None else
                f"[physics]\nstopping_scale = {{ Mo = {float(stopping_scale_Mo)!r} }}")
     fixed_line = "" if not fixed else "fixed = [" + ", ".join(f'"{f}"' for f in fixed) + "]"
-    return scenario_head(charge_uC) + _RUN.format(physics=physics, first=int(window[0]),
-                                                  last=int(window[1]), fixed=fixed_line,
-                                                  extra=fit_extra)
+    head = run_head(charge_uC=float(charge_uC), **MO_ON_CARBON)
+    return head + _RUN.format(physics=physics, first=int(window[0]), last=int(window[1]),
+                              fixed=fixed_line, extra=fit_extra)
 
 
 def scenario_objective(text: str, *, full_range: bool = False):

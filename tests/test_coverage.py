@@ -22,7 +22,7 @@ import pytest
 from scipy import stats
 
 import forward
-from benchmarks.coverage import scenario_head
+from benchmarks._runs import MO_ON_CARBON, run_head
 from inversion import (NotConvergedWarning, cramer_rao_sd, fisher_matrix, invert,
                        nominal_theta, prepare)
 
@@ -37,7 +37,7 @@ FAST = "walkers = 12\ntau_multiple = 30\ncheck_every = 50\nmax_steps = 6000\nban
 N_REPLICAS = 8
 
 # The study's INVENTED scenario (the same as benchmarks/coverage.py's; not a real sample).
-#: the sample and the fit; the run file's head is the study's own (scenario_head)
+#: the sample and the fit; run_text puts the run file's head (MO_ON_CARBON) above them
 _RUN = """\
 [[layer]]
 name = "film"
@@ -64,8 +64,8 @@ def run_text(charge_uC=CHARGE_UC, *, fixed=(), fit_extra="", window=True) -> str
     """The scenario's run text (``window=False``: no fit window, every channel computed)."""
     fixed_line = "" if not fixed else "fixed = [" + ", ".join(f'"{f}"' for f in fixed) + "]"
     window_line = f"windows = [[{WINDOW[0]}, {WINDOW[1]}]]" if window else ""
-    return scenario_head(charge_uC) + _RUN.format(fixed=fixed_line, extra=fit_extra,
-                                                  window=window_line)
+    head = run_head(charge_uC=float(charge_uC), **MO_ON_CARBON)
+    return head + _RUN.format(fixed=fixed_line, extra=fit_extra, window=window_line)
 
 
 def scenario_objective(text):
