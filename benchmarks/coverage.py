@@ -61,6 +61,7 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 import forward  # noqa: E402
+from benchmarks._runs import MO_ON_CARBON, run_head  # noqa: E402
 from inversion import (NotConvergedWarning, Role, cramer_rao_sd, fisher_matrix,  # noqa: E402
                        invert, nominal_theta, prepare)
 
@@ -75,26 +76,8 @@ CHANNELS = 1024
 CHARGE_UC = 2.0
 WINDOW = (760, 890)
 
+#: the sample and the fit; run_text puts the run file's head (MO_ON_CARBON) above them
 _RUN = """\
-# INVENTED scenario for the calibration study (not a real sample, not a measurement):
-# a molybdenum film on glassy carbon whose Mo/C interface has mixed.
-title = "invented: Mo film on glassy carbon, mixed interface"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = {charge_uC}
-live_fraction = 0.95
 [[layer]]
 name = "film"
 formula = "Mo"
@@ -137,9 +120,9 @@ def run_text(charge_uC: float = CHARGE_UC, *, fixed=(), stopping_scale_Mo: float
     physics = ("" if stopping_scale_Mo is None else
                f"[physics]\nstopping_scale = {{ Mo = {float(stopping_scale_Mo)!r} }}")
     fixed_line = "" if not fixed else "fixed = [" + ", ".join(f'"{f}"' for f in fixed) + "]"
-    return _RUN.format(charge_uC=float(charge_uC), physics=physics, first=int(window[0]),
-                       last=int(window[1]), fixed=fixed_line,
-                       extra=fit_extra)
+    head = run_head(charge_uC=float(charge_uC), **MO_ON_CARBON)
+    return head + _RUN.format(physics=physics, first=int(window[0]), last=int(window[1]),
+                              fixed=fixed_line, extra=fit_extra)
 
 
 def scenario_objective(text: str, *, full_range: bool = False):

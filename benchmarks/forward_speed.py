@@ -47,23 +47,11 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-RUN_TEXT = """
-title = "invented benchmark: NiGe-like contact over an oxide on silicon"
-[beam]
-ion = "4He"
-energy_keV = 2000
-[geometry]
-scattering_deg = 165
-incidence_deg = 0
-exit_deg = 15
-[detector]
-fwhm_keV = 19
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 1.6
-offset_keV = 60
-[exposure]
-charge_uC = 10
+from benchmarks._runs import run_head  # noqa: E402
+
+RUN_TEXT = run_head(title="invented benchmark: NiGe-like contact over an oxide on silicon",
+                    energy_keV=2000, scattering_deg=165, incidence_deg=0, exit_deg=15,
+                    fwhm_keV=19, keV_per_channel=1.6, offset_keV=60, charge_uC=10) + """\
 [[layer]]
 formula = "Ni0.45Ge0.55"
 areal_density_1e15 = 300

@@ -53,27 +53,14 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import forward  # noqa: E402
+from benchmarks._runs import run_head  # noqa: E402
 from inversion import NotConvergedWarning, invert  # noqa: E402
 
-COMMON = """\
-# INVENTED benchmark scenario (not a real sample or measurement).
-title = "invented inversion benchmark"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 16.0
-solid_angle_msr = 2.5
-[calibration]
-keV_per_channel = 2.5
-offset_keV = 15.0
-[exposure]
-charge_uC = 5.0
-"""
+#: the invented set-up of every scenario (normal incidence; _TILTED: tilted by 45 degrees)
+_SETUP = dict(title="invented inversion benchmark", charge_uC=5.0, fwhm_keV=16.0,
+              solid_angle_msr=2.5, keV_per_channel=2.5, offset_keV=15.0,
+              note="INVENTED benchmark scenario (not a real sample or measurement).")
+COMMON = run_head(**_SETUP)
 
 LAYERS = COMMON + """\
 [[layer]]
@@ -159,8 +146,7 @@ depth_1e15 = 450.0
 species = ["Pt", "Ni", "Si"]
 """
 
-_TILTED = COMMON.replace("incidence_deg = 0.0\nexit_deg = 15.0",
-                         "tilt_deg = 45.0\nlayout = \"IBM\"")
+_TILTED = run_head(**_SETUP, tilt_deg=45.0, layout="IBM")
 #: the layers sample tilted by 45 degrees, as a run file of one measurement (to simulate it)
 LAYERS_TILTED = LAYERS.replace(COMMON, _TILTED).replace("windows = [[260, 760]]\n", "")
 

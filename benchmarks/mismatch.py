@@ -64,6 +64,7 @@ if str(ROOT) not in sys.path:
 
 import forward  # noqa: E402
 import inversion  # noqa: E402
+from benchmarks._runs import run_head  # noqa: E402
 
 __all__ = ["SAMPLES", "Sample", "LayerSpec", "world_tables", "run_text", "simulate_world",
            "run_case", "summarise", "discretization_deviance", "main"]
@@ -233,13 +234,10 @@ def run_text(sample: Sample, *, physics: str = "", guess: dict | None = None,
              world: bool = False) -> str:
     """A run file for ``sample``: the truth (``world``) or a user's guess (``guess``: layer
     name -> areal density)."""
-    lines = [f'title = "{sample.description}"', "[beam]", 'ion = "4He"',
-             f"energy_keV = {sample.energy_keV}", "[geometry]",
-             f"scattering_deg = {sample.scattering_deg}", f"incidence_deg = {sample.incidence_deg}",
-             f"exit_deg = {sample.exit_deg}", "[detector]", f"fwhm_keV = {sample.fwhm_keV}",
-             "solid_angle_msr = 3.0", "[calibration]", "keV_per_channel = 2.0",
-             "offset_keV = 20.0", "[exposure]", f"charge_uC = {sample.charge_uC}",
-             "live_fraction = 1.0"]
+    lines = run_head(title=sample.description, charge_uC=sample.charge_uC,
+                     energy_keV=sample.energy_keV, scattering_deg=sample.scattering_deg,
+                     incidence_deg=sample.incidence_deg, exit_deg=sample.exit_deg,
+                     fwhm_keV=sample.fwhm_keV, live_fraction=1.0).splitlines()
     for L in sample.layers:
         lines += ["[[layer]]", f'name = "{L.name}"', f'formula = "{_formula(L, world)}"',
                   f"density_g_cm3 = {L.density_g_cm3}"]

@@ -49,27 +49,12 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import forward  # noqa: E402
+from benchmarks._runs import run_head  # noqa: E402
 from inversion import cli  # noqa: E402
 from inversion._api import prepare  # noqa: E402
 
-GATE = """\
-# INVENTED benchmark scenario (not a real sample or measurement).
-title = "invented: HfO2 / TaN / Si gate stack"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-tilt_deg = 7.0
-layout = "IBM"
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = 10.0
+GATE = run_head(title="invented: HfO2 / TaN / Si gate stack", charge_uC=10.0, tilt_deg=7.0,
+                note="INVENTED benchmark scenario (not a real sample or measurement).") + """\
 [[layer]]
 name = "oxide"
 formula = "HfO2"

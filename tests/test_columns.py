@@ -9,25 +9,10 @@ import numpy as np
 import pytest
 
 import forward
+from benchmarks._runs import run_head
 
-TRACER = """\
-# INVENTED: two TiO2 layers enriched differently in 18O, on carbon
-title = "invented two-layer 18O tracer"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 13.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = 10.0
+TRACER = run_head(title="invented two-layer 18O tracer", charge_uC=10.0, fwhm_keV=13.0,
+                  note="INVENTED: two TiO2 layers enriched differently in 18O, on carbon") + """\
 [[layer]]
 name = "upper"
 formula = "TiO2"

@@ -22,6 +22,7 @@ import pytest
 from scipy import stats
 
 import forward
+from benchmarks._runs import MO_ON_CARBON, run_head
 from inversion import (NotConvergedWarning, cramer_rao_sd, fisher_matrix, invert,
                        nominal_theta, prepare)
 
@@ -36,26 +37,8 @@ FAST = "walkers = 12\ntau_multiple = 30\ncheck_every = 50\nmax_steps = 6000\nban
 N_REPLICAS = 8
 
 # The study's INVENTED scenario (the same as benchmarks/coverage.py's; not a real sample).
+#: the sample and the fit; run_text puts the run file's head (MO_ON_CARBON) above them
 _RUN = """\
-# INVENTED scenario for the calibration study (not a real sample, not a measurement):
-# a molybdenum film on glassy carbon whose Mo/C interface has mixed.
-title = "invented: Mo film on glassy carbon, mixed interface"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = {charge_uC}
-live_fraction = 0.95
 [[layer]]
 name = "film"
 formula = "Mo"
@@ -80,8 +63,9 @@ profile = "layers"
 def run_text(charge_uC=CHARGE_UC, *, fixed=(), fit_extra="", window=True) -> str:
     """The scenario's run text (``window=False``: no fit window, every channel computed)."""
     fixed_line = "" if not fixed else "fixed = [" + ", ".join(f'"{f}"' for f in fixed) + "]"
-    return _RUN.format(charge_uC=float(charge_uC), fixed=fixed_line, extra=fit_extra,
-                       window=f"windows = [[{WINDOW[0]}, {WINDOW[1]}]]" if window else "")
+    window_line = f"windows = [[{WINDOW[0]}, {WINDOW[1]}]]" if window else ""
+    head = run_head(charge_uC=float(charge_uC), **MO_ON_CARBON)
+    return head + _RUN.format(fixed=fixed_line, extra=fit_extra, window=window_line)
 
 
 def scenario_objective(text):

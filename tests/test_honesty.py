@@ -18,6 +18,7 @@ from scipy.special import xlogy
 
 import forward
 import inversion
+from benchmarks._runs import run_head
 from inversion.fit._information import nominal_theta
 from inversion.fit._predictive import predictive_check
 from inversion.sample._start import laplace_covariance, prior_bounds
@@ -25,23 +26,6 @@ from inversion.sample._start import laplace_covariance, prior_bounds
 __all__: list[str] = []
 
 _FILM = """\
-title = "invented: a platinum film on silicon, sharp interface"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = {charge}
-live_fraction = 1.0
 [[layer]]
 name = "film"
 formula = "Pt"
@@ -64,7 +48,9 @@ TRUE_T = 280.0
 
 def _run(tmp_path, *, t=TRUE_T, charge=2.0, physics="", fit="", name="film.toml"):
     path = tmp_path / name
-    path.write_text(_FILM.format(t=t, charge=charge, physics=physics, fit=fit))
+    path.write_text(run_head(title="invented: a platinum film on silicon, sharp interface",
+                             charge_uC=charge, live_fraction=1.0)
+                    + _FILM.format(t=t, physics=physics, fit=fit))
     return path
 
 
@@ -107,23 +93,7 @@ def test_profile_log_likelihood_of_a_sharp_film_has_one_maximum(tmp_path):
 
 
 def _marker_objective(tmp_path):
-    text = """\
-title = "invented: a thin germanium marker under silicon"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = 10.0
+    text = run_head(title="invented: a thin germanium marker under silicon", charge_uC=10.0) + """\
 [[layer]]
 name = "cap"
 formula = "Si"

@@ -13,6 +13,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import forward
+from benchmarks._runs import run_head
 
 __all__: list[str] = []
 
@@ -24,27 +25,6 @@ SUBSTRATES = ("Si", "Ge", "Al")
 
 SETTINGS = settings(max_examples=30, deadline=None, derandomize=True,
                     suppress_health_check=[HealthCheck.too_slow])
-
-HEADER = """\
-# invented sample for a property test
-title = "invented: random stack"
-[beam]
-ion = "4He"
-energy_keV = {energy}
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 2.0
-[calibration]
-keV_per_channel = 3.0
-offset_keV = 20.0
-[exposure]
-charge_uC = {charge}
-"""
-
 
 def _layer_text(name, formula, areal_density_1e15, substrate=False):
     if substrate:
@@ -76,7 +56,8 @@ def stacks(draw, max_layers=3):
 
 
 def _run(layers, substrate, energy, charge=5.0):
-    text = HEADER.format(energy=energy, charge=charge)
+    text = run_head(title="invented: random stack", note="invented sample for a property test",
+                    energy_keV=energy, charge_uC=charge, solid_angle_msr=2.0, keV_per_channel=3.0)
     for i, (formula, t) in enumerate(layers):
         text += _layer_text(f"L{i + 1}", formula, t)
     if substrate:
@@ -188,24 +169,10 @@ def test_a_grid_that_follows_the_sample_gives_that_samples_spectrum(stack, facto
 
 
 # ----------------------------------------------------------------------------------------------
-NOISELESS_RUN = """\
-# INVENTED test scenario (not a real sample): a hafnium oxide film on germanium
-title = "invented: HfO2 on Ge, noiseless recovery"
-[beam]
-ion = "4He"
-energy_keV = 2200.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 2.0
-[calibration]
-keV_per_channel = 3.5
-offset_keV = 30.0
-[exposure]
-charge_uC = 40.0
+NOISELESS_RUN = run_head(
+    title="invented: HfO2 on Ge, noiseless recovery", energy_keV=2200.0, charge_uC=40.0,
+    solid_angle_msr=2.0, keV_per_channel=3.5, offset_keV=30.0,
+    note="INVENTED test scenario (not a real sample): a hafnium oxide film on germanium") + """\
 [[layer]]
 name = "film"
 formula = "Hf0.33O0.67"

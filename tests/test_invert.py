@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 import forward
+from benchmarks._runs import run_head
 from forward import InputError
 from inversion import NotConvergedWarning, invert, parse_fit, read_result
 
@@ -117,24 +118,8 @@ def test_interrupt_then_resume_equals_one_run(toy, tmp_path):
 
 # ----------------------------------------------------------------------------------------------
 # the real forward model
+#: the sample and the fit (_simulate puts the run file's head above them)
 RUN_TEXT = """\
-# INVENTED test scenario (not a real sample): a nickel film over a germanium film on silicon.
-title = "invented: Ni / Ge / Si for the inversion tests"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 160.0
-incidence_deg = 0.0
-exit_deg = 20.0
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 2.0
-[calibration]
-keV_per_channel = 4.0
-offset_keV = 10.0
-[exposure]
-charge_uC = {charge}
 [[layer]]
 name = "top"
 formula = "Ni"
@@ -167,7 +152,12 @@ TRUTH = {"top.areal_density": 150.0, "mid.areal_density": 250.0}
 
 def _simulate(tmp_path, charge, seed, steps=2000):
     path = tmp_path / f"run_{charge:g}.toml"
-    path.write_text(RUN_TEXT.format(charge=charge, steps=steps))
+    head = run_head(title="invented: Ni / Ge / Si for the inversion tests", charge_uC=charge,
+                    scattering_deg=160.0, exit_deg=20.0, solid_angle_msr=2.0,
+                    keV_per_channel=4.0, offset_keV=10.0,
+                    note="INVENTED test scenario (not a real sample): a nickel film over a "
+                         "germanium film on silicon.")
+    path.write_text(head + RUN_TEXT.format(steps=steps))
     run = forward.load_run(path)
     model = forward.ForwardModel(run, n_channels=512)
     expected = np.maximum(model.expected_counts(model.layer_fractions()), 0.0)

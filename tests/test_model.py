@@ -20,7 +20,7 @@ from forward._straggling import straggling_rate
 
 from reference_model import spectrum_kernel_reference, step_integral
 
-from forward_runs import FILM_ON_SUBSTRATE, RUN_HEAD, TRACER, make_run  # noqa: F401
+from forward_runs import FILM_ON_SUBSTRATE, TRACER, make_run, run_text
 
 
 def _compare(model, fractions, nuisance=None, widths_1e15=None):
@@ -387,10 +387,8 @@ def test_depth_map_runs_from_surface_edge_down():
 
 
 def _write_run(tmp_path, **kw):
-    text = RUN_HEAD.format(**{**dict(energy=1800.0, theta=165.0, th1=0.0, th2=15.0, fwhm=16.0,
-                                     omega=2.5, gain=2.0, offset=50.0, quad=0.0, charge=5.0), **kw})
     path = tmp_path / "invented.toml"
-    path.write_text(text + TRACER)
+    path.write_text(run_text(TRACER, **kw))
     return path
 
 

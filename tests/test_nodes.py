@@ -16,27 +16,13 @@ from scipy import integrate
 
 import forward
 import inversion
+from benchmarks._runs import run_head
 from forward import InputError
 from inversion.fit._nodes import describe_nodes
 from inversion.fit._stack import refinement_points, stack_table
 
+#: the sample's layers and the fit (the run file's head is written by _run)
 RUN = """\
-title = "invented: a Pt cap over Ni on Si, interfaces interdiffused"
-[beam]
-ion = "4He"
-energy_keV = 2000.0
-[geometry]
-scattering_deg = 165.0
-incidence_deg = 0.0
-exit_deg = 15.0
-[detector]
-fwhm_keV = 16.0
-solid_angle_msr = 2.5
-[calibration]
-keV_per_channel = 2.5
-offset_keV = 15.0
-[exposure]
-charge_uC = {charge}
 [[layer]]
 name = "cap"
 formula = "Pt"
@@ -67,7 +53,10 @@ TRUTH_T, TRUTH_W = np.array([100.0, 200.0]), np.array([30.0, 40.0])
 
 def _run(tmp_path, nodes="", fit="", charge=5.0):
     path = tmp_path / "run.toml"
-    path.write_text(RUN.format(nodes=nodes, fit=fit, charge=charge))
+    head = run_head(title="invented: a Pt cap over Ni on Si, interfaces interdiffused",
+                    charge_uC=charge, fwhm_keV=16.0, solid_angle_msr=2.5, keV_per_channel=2.5,
+                    offset_keV=15.0)
+    path.write_text(head + RUN.format(nodes=nodes, fit=fit))
     return path
 
 

@@ -16,7 +16,7 @@ from forward._stopping import CARBON_PHASES, helium_electronic_stopping, nuclear
 from forward._straggling import (STRAGGLING_LAWS, bohr_variance, lindhard_scharff_chi,
                                  straggling_rate)
 
-from forward_runs import make_run
+from forward_runs import make_run, run_text
 
 FILM_ON_CARBON = """
 [[layer]]
@@ -60,12 +60,8 @@ def test_unknown_choice_is_one_line_naming_key_and_allowed_values(key, value, al
 def test_unknown_choice_on_the_command_line_exits_2_with_one_line(tmp_path, capsys):
     from inversion.cli import main
 
-    from test_model import RUN_HEAD
-
-    text = RUN_HEAD.format(energy=1800.0, theta=165.0, th1=0.0, th2=15.0, fwhm=16.0, omega=2.5,
-                           gain=2.0, offset=50.0, quad=0.0, charge=5.0)
     path = tmp_path / "invented.toml"
-    path.write_text(text + FILM_ON_CARBON + _physics(straggling="yang"))
+    path.write_text(run_text(FILM_ON_CARBON, physics=_physics(straggling="yang")))
     assert main(["check", str(path)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "physics.straggling" in err[0] and "'bohr'" in err[0]

@@ -18,6 +18,7 @@ from scipy import integrate
 
 import forward
 import inversion
+from benchmarks._runs import run_head
 from inversion import Parameter, Role, cli, make_prior
 from inversion.planning import _expected as E
 from inversion.planning._check import check_plan
@@ -27,25 +28,8 @@ from inversion.planning._plan import PlanWarning
 # INVENTED scenario (not a real sample): W cap / Cu film / glassy carbon.  Both interfaces
 # mixed (the film's lower one known from an earlier measurement: a lognormal prior), fluence and
 # the stopping of W and Cu free; calibration and resolution fixed; short chains for the tests.
+#: the sample and the fit (run_text puts the run file's head above them)
 _RUN = """\
-# INVENTED test scenario: a tungsten cap over a copper film on glassy carbon.
-title = "invented: W cap / Cu film on glassy carbon"
-[beam]
-ion = "4He"
-energy_keV = {energy}
-[geometry]
-scattering_deg = 165.0
-tilt_deg = 0.0
-layout = "IBM"
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = 1.0
-live_fraction = 0.95
 [[layer]]
 name = "cap"
 formula = "W"
@@ -81,7 +65,11 @@ FIXED = '["gain_keV", "offset_keV", "fwhm_keV", "stopping.C"]'
 
 
 def run_text(energy_keV=1800.0, fixed=FIXED) -> str:
-    return _RUN.format(energy=float(energy_keV), fixed=fixed)
+    head = run_head(title="invented: W cap / Cu film on glassy carbon", charge_uC=1.0,
+                    energy_keV=float(energy_keV), tilt_deg=0.0, live_fraction=0.95,
+                    note="INVENTED test scenario: a tungsten cap over a copper film on glassy "
+                         "carbon.")
+    return head + _RUN.format(fixed=fixed)
 
 
 def scenario(**kwargs):

@@ -15,28 +15,10 @@ import numpy as np
 import pytest
 
 import forward
+from benchmarks._runs import run_head
 from inversion import cli
 
 __all__: list[str] = []
-
-HEADER = """
-title = "invented: {title}"
-[beam]
-ion = "4He"
-energy_keV = {energy}
-[geometry]
-scattering_deg = 165.0
-tilt_deg = 7.0
-layout = "IBM"
-[detector]
-fwhm_keV = 15.0
-solid_angle_msr = 3.0
-[calibration]
-keV_per_channel = 2.0
-offset_keV = 20.0
-[exposure]
-charge_uC = {charge}
-"""
 
 #: a thin hafnium marker under a silicon cap, above a thick, light silicon carbide matrix
 MARKER = """
@@ -77,7 +59,8 @@ density_g_cm3 = 2.33
 
 
 def _run(layers, *, title="sample", energy=2000.0, charge=40.0, source="run.toml"):
-    text = HEADER.format(title=title, energy=energy, charge=charge) + layers
+    text = run_head(title=f"invented: {title}", energy_keV=energy, charge_uC=charge,
+                    tilt_deg=7.0) + layers
     return forward.parse_run(text, source=source)
 
 
