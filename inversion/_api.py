@@ -37,6 +37,7 @@ from .results._store import now_text, set_attrs
 from .results._writer import (create_result, open_chain, open_for_resume, read_starts,
                               set_status, write_posterior, write_start)
 from .sample._convergence import burn_in_and_thin, diagnostics, not_converged_message
+from .fit._resolution import resolution_flags
 from .sample._flags import PosteriorFlagWarning, posterior_flags
 from .sample._sampler import Sampler, stop_on_interrupt
 
@@ -490,6 +491,8 @@ def finalise(output, objective, status, *, seed, messages) -> list:
 
     # the posterior's flags join the warnings (inversion/sample/_flags.py)
     messages += posterior_flags(spec, backend.get_chain(), logp_all, status.acceptance, samples)
+    # widths the spectrum does not resolve, by name (inversion/fit/_resolution.py)
+    messages += resolution_flags(objective, samples)
     derived_names, derived_units, notes = objective.derived_names()
     derived = np.array([objective.derived(t) for t in samples])
     found = []
