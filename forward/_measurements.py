@@ -33,7 +33,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ._errors import InputError
-from ._runfile import _TOML_AT, _build, _kind
+from ._runfile import _TOML_AT, _build, _kind, override_note
 
 __all__ = ["Measurement", "MeasurementSet", "load_measurements", "parse_measurements",
            "has_measurements",
@@ -155,7 +155,10 @@ class MeasurementSet:
                 new = dataclasses.replace(new, spectrum=_spectrum_path(
                     text, m.run.base_dir or Path.cwd(), here), spectrum_text=text)
             out.append(new)
-        found = dataclasses.replace(self, measurements=tuple(out))
+        note = override_note({name: {**(changes.get(name) or {}),
+                                     **({"spectrum": str(spectra[name])} if name in spectra
+                                        else {})} for name in self.names}, where)
+        found = dataclasses.replace(self, measurements=tuple(out), text=self.text + note)
         located = (lambda name: f"{where}.measurement.{name}") if source else None
         _check_ions(found, located)
         _check_groups(found, located)

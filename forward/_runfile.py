@@ -33,6 +33,7 @@ README lists them.
 
 from __future__ import annotations
 
+import json
 import math
 import re
 import tomllib
@@ -487,6 +488,7 @@ class Run:
         """
         raw = {k: (dict(v) if isinstance(v, dict) else v) for k, v in self.raw.items()}
         where = source or self.source
+        text = self.text + override_note({"": changes}, where)
         for key, value in changes.items():
             if key not in _TOP_KEYS:
                 raise InputError(f"unknown table {key!r}; allowed: {', '.join(_TOP_KEYS)}", where=where)
@@ -501,7 +503,49 @@ class Run:
                 raw[key] = merged
             else:
                 raw[key] = value
-        return _build(raw, source=where, text=self.text, base_dir=self.base_dir)
+        return _build(raw, source=where, text=text, base_dir=self.base_dir)
+
+
+def _note_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return json.dumps(value)
+    if isinstance(value, Mapping):
+        return "{ " + ", ".join(f"{k} = {_note_value(v)}" for k, v in value.items()) + " }"
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_note_value(v) for v in value) + "]"
+    return repr(value)
+
+
+def override_note(changes: Mapping[str, Mapping[str, Any]], source: str) -> str:
+    """TOML comment lines recording changes made over a run file's text.
+
+    A run changed after reading (:meth:`Run.with_overrides`, a series member's charge or
+    calibration, a planned set-up) keeps its file's text with these lines appended, so the text
+    stored in a result file says what was inverted, and a resume with other changes is refused
+    (the text differs).  Comments: the text still parses to the file's own values.
+
+    Parameters
+    ----------
+    changes : mapping
+        ``{prefix: {table: {key: value}}}``; the prefix (a measurement's name, or ``""``) is
+        written before each table.
+    source : str
+        Where the changes came from.
+    """
+    lines = []
+    for prefix, tables in changes.items():
+        for table, value in (tables or {}).items():
+            head = f"{prefix}.{table}" if prefix else str(table)
+            if isinstance(value, Mapping) and table not in ("fit",):
+                lines += [f"# {head}.{key} = {_note_value(v)}" for key, v in value.items()]
+            else:
+                lines.append(f"# {head} = {_note_value(value)}")
+    if not lines:
+        return ""
+    return ("\n# ---- changed over the tables above (" + " ".join(str(source).split())
+            + "); comments, not read ----\n" + "\n".join(lines) + "\n")
 
 
 # ----------------------------------------------------------------------------------------------

@@ -12,6 +12,7 @@ import re
 import subprocess
 import sys
 import time
+import warnings
 from pathlib import Path
 
 import h5py
@@ -19,6 +20,7 @@ import numpy as np
 import pytest
 
 import forward
+from forward import InputError
 from inversion import cli, read_result
 from inversion.results import _outputs
 
@@ -213,3 +215,26 @@ def test_force_and_resume_on_a_file_another_program_holds_open(tmp_path, capsys,
     assert cli.main(["-q", "invert", str(RUN), str(SPECTRUM), "-o", str(out_file), "--resume",
                      "--max-steps", "30", "--workers", "1"]) == 0
     assert int(read_result(out_file).diagnostics["steps"]) == 30
+
+
+def test_a_changed_run_is_recorded_and_its_resume_refused(tmp_path):
+    # a run changed after reading (a series member's charge) keeps its file's text with the
+    # change appended as comments: the result file says what was inverted, and resuming with
+    # another change is refused instead of continuing a chain of another model
+    from inversion import invert
+
+    base = forward.load_run(RUN)
+    charge = float(base.exposure.charge_uC)
+    first = base.with_overrides({"exposure": {"charge_uC": 1.1 * charge}}, source="s.toml: a")
+    out_file = tmp_path / "r.h5"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        invert(first, SPECTRUM, out_file, max_steps=10, progress=False)
+    stored = read_result(out_file).run_text
+    assert stored == first.text and stored.startswith(base.text)
+    assert f"# exposure.charge_uC = {1.1 * charge!r}" in stored
+    other = base.with_overrides({"exposure": {"charge_uC": 1.2 * charge}}, source="s.toml: a")
+    with pytest.raises(InputError, match="different run file or spectrum"):
+        invert(other, SPECTRUM, out_file, resume=True, max_steps=20, progress=False)
+    # comments, not read: the stored text parses to the file's own values
+    assert forward.parse_run(stored, source="stored").exposure.charge_uC == charge
