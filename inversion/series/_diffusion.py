@@ -244,7 +244,8 @@ class _MemberTable:
         above = mu > self.u_hi
         if np.any(above):
             d_far = np.exp(np.minimum(mu[above], 700.0))
-            out[above] = self.c_hi - 0.5 * ((d_far - self.d_max) / self.h) ** 2
+            with np.errstate(over="ignore"):  # far above: -inf, as it should be
+                out[above] = self.c_hi - 0.5 * ((d_far - self.d_max) / self.h) ** 2
         return out
 
 
