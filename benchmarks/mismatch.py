@@ -27,6 +27,10 @@ Printed with ``--json``:
 * ``ppc_flagged``: the fraction of inversions whose posterior predictive check rejected the
   model (``/diagnostics`` attribute ``model_rejected``; ``null`` when the program does not
   record one);
+* ``unresolved_widths`` / ``unresolved_bound_held``: interface widths the program names as
+  not resolved by the spectrum (``inversion/fit/_resolution.py``: to be quoted as an upper
+  bound), and the fraction whose truth lies below the 95 % upper bound; ``resolved_widths`` /
+  ``resolved_width_coverage95`` the same for the widths it does not flag;
 * ``discretization_deviance``: for the heavy film at 1.5 million counts, the Poisson deviance
   between the spectrum the fit's default grid gives at the true areal density and that of a
   grid twenty times finer (same physics), over the fit window;
@@ -362,6 +366,8 @@ def run_case(task: dict) -> dict:
     truth = sample.quantities()
     diag = res.diagnostics
     rejected = diag.get("model_rejected")
+    said = [str(w) for w in np.atleast_1d(diag.get("warnings", []))]
+    unresolved = sorted({w.split(":")[0] for w in said if "below the depth resolution" in w})
     return {"sample": sample.name, "replica": replica, "seed": seed,
             "counts": int(counts.sum()), "truth": truth,
             "summary": {k: {q: float(res.summary[k][q]) for q in
@@ -369,6 +375,7 @@ def run_case(task: dict) -> dict:
                         for k in list(truth) + [n for n in res.names if n not in truth]
                         if k in res.summary},
             "converged": bool(res.converged), "steps": int(diag.get("steps", 0)),
+            "unresolved": unresolved,
             "model_rejected": None if rejected is None else bool(rejected),
             "ppc_p_value": (None if diag.get("ppc_p_value") is None
                             else float(diag.get("ppc_p_value"))),
@@ -417,6 +424,25 @@ def summarise(records: list) -> dict:
                  <= min(a["summary"][q]["high68"], b["summary"][q]["high68"])
                  for q in a["truth"] if q in a["summary"] and q in b["summary"])
         agree.append(ok)
+    # widths the program names as not resolved (an upper bound, not a measurement): does the
+    # bound hold, and how do the widths it does call measured cover?
+    bound_held, measured_inside = [], []
+    for r in first:
+        if "unresolved" not in r:
+            continue  # recorded before the flag existed
+        for q, t in r["truth"].items():
+            if not q.endswith(".mixing") or q not in r["summary"]:
+                continue
+            if q in r["unresolved"]:
+                bound_held.append(t <= r["summary"][q]["high95"])
+            else:
+                s = r["summary"][q]
+                measured_inside.append(s["low95"] <= t <= s["high95"])
+    out["unresolved_widths"] = len(bound_held)
+    out["unresolved_bound_held"] = float(np.mean(bound_held)) if bound_held else None
+    out["resolved_widths"] = len(measured_inside)
+    out["resolved_width_coverage95"] = (float(np.mean(measured_inside)) if measured_inside
+                                        else None)
     out["seed_agreement"] = float(np.mean(agree)) if agree else None
     out["seed_pairs"] = len(agree)
     flags = [r["model_rejected"] for r in records if r["model_rejected"] is not None]
