@@ -559,7 +559,12 @@ def _spectrum_lines(run_, spectrum, findings, accept_calibration):
                                 "unit slip (nC or C for uC, sr for msr); allowed: within a "
                                 f"factor {COUNTS_ERROR_FACTOR:g}", f"{run_.source}: exposure"))
     elif off > COUNTS_WARNING_FACTOR:
-        findings.append(Finding("warning", "exposure.counts", text + "; the fluence prior "
-                                "normal(1, 0.05) will have to stretch",
-                                f"{run_.source}: exposure"))
+        free_form = isinstance(getattr(run_, "fit", None), dict) and \
+            run_.fit.get("profile") == "nodes"
+        findings.append(Finding("warning", "exposure.counts", text + (
+            "; a free-form profile's layers only set its depth range and starting guess, so "
+            "a profile unlike them explains part of this, but check the exposure: the fluence "
+            "prior is normal(1, 0.05)" if free_form else
+            "; the fluence prior normal(1, 0.05) will have to stretch"),
+            f"{run_.source}: exposure"))
     return lines

@@ -162,6 +162,13 @@ def test_counts_against_the_exposure(marker, factor, severity):
         return
     assert [f.severity for f in found] == [severity]
     assert f"{1 / factor:.3g} times the counts the run file expects" in found[0].message
+    if severity == "warning":
+        assert "will have to stretch" in found[0].message
+        # a free-form fit's layers are only its range and first guess: said so
+        nodes = dataclasses.replace(said, fit={**dict(said.fit or {}), "profile": "nodes"})
+        (free,) = [f for f in forward.preflight(nodes, spectrum).findings
+                   if f.key == "exposure.counts"]
+        assert free.severity == "warning" and "free-form profile" in free.message
 
 
 def test_signals_closer_than_the_resolution_name_both_and_the_ways_out():
