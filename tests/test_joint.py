@@ -353,6 +353,26 @@ def test_members_of_a_detector_group_have_one_detector(world):
     assert [m.run.calibration.offset_keV for m in both.measurements] == [21.0, 21.0]
 
 
+def test_charge_groups_and_detector_groups_together(world, tmp_path):
+    # two detectors (a, b), each recording two exposures (1, 2): the charge is one per
+    # exposure, the calibration one per detector
+    for name in TILTS:
+        (tmp_path / f"{name}.csv").write_bytes((world / f"{name}.csv").read_bytes())
+    text = _SAMPLE.format(fixed='["straggling", "slope.Ta", "slope.Si"]')
+    for name, (spectrum, charge, detector) in {"a1": ("normal", "x1", "da"),
+                                               "b1": ("tilt60", "x1", "db"),
+                                               "a2": ("normal", "x2", "da"),
+                                               "b2": ("tilt60", "x2", "db")}.items():
+        text += (f'\n[[measurement]]\nname = "{name}"\nspectrum = "{spectrum}.csv"\n'
+                 f'charge_group = "{charge}"\ndetector_group = "{detector}"\n'
+                 + _TABLES.format(prefix="[measurement.", tilt=TILTS[spectrum]))
+    (tmp_path / "four.toml").write_text(text)
+    joint = prepare_joint(load_joint(tmp_path / "four.toml"))
+    assert joint.names[3:] == ["fluence_scale@x1", "gain_keV@da", "offset_keV@da", "fwhm_keV@da",
+                               "gain_keV@db", "offset_keV@db", "fwhm_keV@db",
+                               "fluence_scale@x2"]
+
+
 def test_a_detector_group_in_the_result_file_and_report(world, tmp_path):
     # a few dozen steps: what the result file and the report make of the group's names
     from inversion.report._data import read_report_data
