@@ -9,10 +9,10 @@ spectrum is not: the calibration (``gain_keV``, ``offset_keV``), the resolution
 (``fwhm_keV``), the fluence (``fluence_scale``) and the background levels, named
 ``<quantity>@<measurement>``; measurements of one ``charge_group`` share one
 ``fluence_scale@<group>``, measurements of one ``detector_group`` one ``gain_keV@<group>``,
-``offset_keV@<group>`` and ``fwhm_keV@<group>``.  An index map per measurement (:attr:`JointObjective.takes`) picks
-its objective's parameters out of the joint vector, so the log-likelihood is the sum of each
-spectrum's Poisson log-likelihood over its own window, and the log-prior is taken once over
-the joint parameters.
+``offset_keV@<group>`` and ``fwhm_keV@<group>``.  An index map per measurement
+(:attr:`JointObjective.takes`) picks its objective's parameters out of the joint vector, so
+the log-likelihood is the sum of each spectrum's Poisson log-likelihood over its own window,
+and the log-prior is taken once over the joint parameters.
 
 The ``[fit]`` table of a joint run is one table: keys of ``fit.free`` and ``fit.fixed`` that
 belong to one spectrum carry ``@<measurement>`` (or ``@<charge group>`` for a shared
@@ -106,7 +106,7 @@ def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, gr
         named after a measurement of a detector group, a quantity named after a group that
         does not own it, a shared quantity with ``@``.
     """
-    owners = _Owners(name, group, names, groups, detector_group, detector_groups or {})
+    owners = _Owners(name, names, groups, detector_groups or {})
     fit = dict(fit or {})
     out = {k: v for k, v in fit.items() if k not in ("free", "fixed")}
     free = fit.get("free", {})
@@ -141,10 +141,9 @@ def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, gr
 class _Owners:
     """Who owns what in a joint run, seen from one measurement."""
 
-    def __init__(self, name, group, names, groups, detector_group, detector_groups):
-        self.name, self.group, self.names = name, group, list(names)
-        self.groups, self.detector_group = dict(groups), detector_group
-        self.detector_groups = dict(detector_groups)
+    def __init__(self, name, names, groups, detector_groups):
+        self.name, self.names = name, list(names)
+        self.groups, self.detector_groups = dict(groups), dict(detector_groups)
 
     def allowed(self, base: str) -> list:
         """Every owner ``base`` may be named after: its groups, then the measurements in
