@@ -8,6 +8,8 @@ Each ``[[measurement]]`` table holds what belongs to one spectrum::
     name = "tilt60"                  # letters, digits, '_' and '-'; unique
     spectrum = "tilt60.csv"          # relative to the run file's folder
     charge_group = "run1"            # optional: measurements of one exposure share its charge
+    detector_group = "det1"          # optional: measurements of one detector share its
+                                     # calibration and resolution
     windows = [[120, 460]]           # optional: this spectrum's fit windows
     [measurement.beam]               # the tables of a one-measurement run file
     [measurement.geometry]
@@ -42,7 +44,8 @@ __all__ = ["Measurement", "MeasurementSet", "load_measurements", "parse_measurem
 #: the tables that belong to one spectrum (shared tables: title, layer, physics, fit)
 PER_MEASUREMENT_TABLES = ("beam", "geometry", "detector", "calibration", "exposure")
 #: the keys of a ``[[measurement]]`` table
-MEASUREMENT_KEYS = ("name", "spectrum", "charge_group", "windows") + PER_MEASUREMENT_TABLES
+MEASUREMENT_KEYS = ("name", "spectrum", "charge_group", "detector_group", "windows") \
+    + PER_MEASUREMENT_TABLES
 _SHARED_KEYS = ("title", "layer", "physics", "fit", "measurement")
 _NAME = re.compile(r"^[A-Za-z0-9_-]{1,40}$")
 
@@ -66,6 +69,9 @@ class Measurement:
         Measurements of one exposure share one charge (fluence) factor.
     windows : list or None
         This spectrum's fit windows as written (checked by the inversion).
+    detector_group : str or None
+        Measurements of one detector (its electronics, its mounting) share its calibration and
+        resolution: one ``gain_keV``, ``offset_keV`` and ``fwhm_keV`` parameter each.
     """
 
     name: str
@@ -74,6 +80,7 @@ class Measurement:
     spectrum_text: str | None = None
     charge_group: str | None = None
     windows: list | None = None
+    detector_group: str | None = None
 
 
 @dataclass(frozen=True)
@@ -113,6 +120,14 @@ class MeasurementSet:
                 out.setdefault(m.charge_group, []).append(m.name)
         return out
 
+    def detector_groups(self) -> dict:
+        """``{detector group: [measurement names]}``."""
+        out: dict = {}
+        for m in self.measurements:
+            if m.detector_group is not None:
+                out.setdefault(m.detector_group, []).append(m.name)
+        return out
+
     def with_overrides(self, changes=None, *, spectra=None, source: str | None = None
                        ) -> "MeasurementSet":
         """The measurements with some tables changed and other spectra, checked again.
@@ -134,7 +149,8 @@ class MeasurementSet:
         ------
         InputError
             A name that is no measurement's, a bad key or value, members of a charge group
-            left with different beams or exposures.
+            left with different beams or exposures, members of a detector group left with
+            different calibrations or detectors.
         """
         changes, spectra = dict(changes or {}), dict(spectra or {})
         where = source or self.source
@@ -162,6 +178,7 @@ class MeasurementSet:
         located = (lambda name: f"{where}.measurement.{name}") if source else None
         _check_ions(found, located)
         _check_groups(found, located)
+        _check_detector_groups(found, located)
         return found
 
 
@@ -173,7 +190,8 @@ def load_measurements(path) -> MeasurementSet:
     InputError
         For a missing file and every bad key or value, a measurement named twice, a
         per-measurement table at the top level beside ``[[measurement]]`` tables, a charge
-        group of one member, a missing spectrum file.
+        group or a detector group of one member, members of a detector group with different
+        calibrations or detectors, a missing spectrum file.
     """
     from ._runfile import load_run
 
@@ -264,6 +282,11 @@ def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> Me
         if group is not None and (not isinstance(group, str) or not _NAME.match(group)):
             raise InputError(f"expected a name of 1 to 40 letters, digits, '_' or '-', got "
                              f"{_kind(group)}", where=f"{here}.charge_group")
+        detector = table.get("detector_group")
+        if detector is not None and (not isinstance(detector, str)
+                                     or not _NAME.match(detector)):
+            raise InputError(f"expected a name of 1 to 40 letters, digits, '_' or '-', got "
+                             f"{_kind(detector)}", where=f"{here}.detector_group")
         windows = table.get("windows")
         single = {key: raw[key] for key in ("title", "layer", "physics", "fit") if key in raw}
         for key in PER_MEASUREMENT_TABLES:
@@ -273,10 +296,11 @@ def parse_measurements(text: str, source: str = "<string>", base_dir=None) -> Me
             run = _build(single, source=source, text=text, base_dir=base)
         except InputError as exc:
             raise _located(exc, source, name) from None
-        out.append(Measurement(name, run, spectrum, spectrum_text, group, windows))
+        out.append(Measurement(name, run, spectrum, spectrum_text, group, windows, detector))
     found = MeasurementSet(tuple(out), source, text, True)
     _check_ions(found)
     _check_groups(found)
+    _check_detector_groups(found)
     return found
 
 
@@ -352,3 +376,52 @@ def _check_groups(found: MeasurementSet, located=None) -> None:
                                  f"{group!r} but not one beam and exposure; allowed: {allowed}",
                                  where=located(other) if located else
                                  f"{source}: measurement.{other}.charge_group")
+
+
+#: what the members of a detector group have in common: (table, key) of every value compared
+_DETECTOR_KEYS = (("calibration", "keV_per_channel"), ("calibration", "offset_keV"),
+                  ("calibration", "quadratic_keV"), ("detector", "fwhm_keV"),
+                  ("detector", "solid_angle_msr"))
+
+
+def _check_detector_groups(found: MeasurementSet, located=None) -> None:
+    """A detector group joins two or more spectra of one detector: one calibration, one
+    detector table (resolution and solid angle).
+
+    The solid angle is compared too, although no parameter is made of it: one detector in one
+    mounting sees the sample under one solid angle whatever the sample's tilt, so a different
+    value means another detector (or the same one moved), whose calibration and resolution
+    the group would wrongly tie.  ``located(name)`` as in :func:`_check_groups`."""
+    source = found.source
+    by_name = {m.name: m for m in found.measurements}
+    charge_groups = found.groups()
+    for group, names in found.detector_groups().items():
+        where = f"{source}: measurement.{names[0]}.detector_group"
+        if len(names) < 2:
+            raise InputError(f"detector group {group!r} has one member ({names[0]!r}); a "
+                             "detector group joins two or more spectra of one detector "
+                             "(the sample tilted, a second exposure); allowed: the same "
+                             "detector_group in two or more measurements, or none", where=where)
+        if group in by_name or group in charge_groups:
+            what = "measurement" if group in by_name else "charge group"
+            raise InputError(f"detector group {group!r} has the name of a {what}; parameters "
+                             "are named <quantity>@<owner>, so allowed: a detector group name "
+                             "that no measurement or charge group has", where=where)
+        first = by_name[names[0]].run
+        for other in names[1:]:
+            run = by_name[other].run
+            for table, key in _DETECTOR_KEYS:
+                mine = getattr(getattr(first, table), key)
+                theirs = getattr(getattr(run, table), key)
+                if mine == theirs:
+                    continue
+                allowed = ("the same changes of the calibration for every member of the "
+                           "detector group" if located else "the same [measurement.calibration] "
+                           "and [measurement.detector] in every member of a detector group "
+                           "(one detector, its electronics and its mounting), or no "
+                           "detector_group")
+                raise InputError(f"measurements {names[0]!r} and {other!r} share detector "
+                                 f"group {group!r} but {table}.{key} is {mine:g} and "
+                                 f"{theirs:g}; allowed: {allowed}",
+                                 where=located(other) if located else
+                                 f"{source}: measurement.{other}.detector_group")

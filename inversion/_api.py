@@ -298,7 +298,8 @@ def prepare_joint(joint, *, likelihood=True, build_models=None):
             raise InputError(f"measurement {m.name!r}: {exc.message}", where=exc.where) from None
         parts.append(objective)
     found = joint.measurements
-    return JointObjective(parts, found.names, [m.charge_group for m in found.measurements])
+    return JointObjective(parts, found.names, [m.charge_group for m in found.measurements],
+                          [m.detector_group for m in found.measurements])
 
 
 def _joint_inputs(run, *, likelihood, accept_calibration):
@@ -546,6 +547,7 @@ def _joint_bands(objective, samples, theta_map, *, seed, diag, found):
     spec = objective.spec
     measurements, checks = [], []
     bands = None
+    detector_groups = getattr(objective, "detector_groups", None) or [None] * len(parts)
     for k, (name, part) in enumerate(zip(objective.measurement_names, parts)):
         # the same seed picks the same posterior draws for every spectrum
         b = posterior_bands(part, objective.part_theta(samples, k),
@@ -553,7 +555,8 @@ def _joint_bands(objective, samples, theta_map, *, seed, diag, found):
                             seed=seed + 2, alpha=alpha, profiles=k == 0)
         bands = b if bands is None else bands
         measurements.append(dict(name=name, bands=b, counts=part.counts, window=part.mask,
-                                 run_calibration_keV=_run_calibration(part), check=b.check))
+                                 run_calibration_keV=_run_calibration(part), check=b.check,
+                                 detector_group=detector_groups[k]))
         if b.check is not None:
             checks.append(b.check)
             if b.check.rejected:

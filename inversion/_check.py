@@ -79,7 +79,8 @@ def _check_joint(found) -> "forward.Preflight":
         spectra.append(inputs.spectrum)
         part = forward.preflight(inputs.run, inputs.spectrum,
                                  load_warnings=inputs.load_warnings)
-        group = f" (charge group {m.charge_group!r})" if m.charge_group else ""
+        group = "".join(f" ({kind} group {value!r})" for kind, value in
+                        (("charge", m.charge_group), ("detector", m.detector_group)) if value)
         report.lines += ["", f"=== measurement {m.name!r}{group}: spectrum "
                              f"{m.spectrum_text or '(none named)'} ==="] + list(part.lines)
         report.findings += [forward.Finding(f.severity, f.key, f"measurement {m.name!r}: "

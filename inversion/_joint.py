@@ -43,11 +43,14 @@ def measurement_runs(measurements) -> list:
     """Each measurement's run with its own ``[fit]`` table (``<quantity>@<measurement>``
     resolved, its windows set)."""
     groups = measurements.groups()
+    detector_groups = measurements.detector_groups()
     names = measurements.names
     out = []
     for m in measurements.measurements:
         fit = measurement_fit(m.run.fit, name=m.name, group=m.charge_group, names=names,
-                              groups=groups, windows=m.windows, source=measurements.source)
+                              groups=groups, windows=m.windows, source=measurements.source,
+                              detector_group=m.detector_group,
+                              detector_groups=detector_groups)
         out.append(replace(m.run, fit=fit))
     return out
 

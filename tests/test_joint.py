@@ -68,15 +68,20 @@ TILTS = {"normal": 0.0, "tilt60": 60.0}
 _HELD = ["gain_keV", "offset_keV", "fwhm_keV", "straggling", "slope.Ta", "slope.Si"]
 
 
-def _joint_text(extra="", group=None):
-    fixed = [f"{n}@{m}" if n in ("gain_keV", "offset_keV", "fwhm_keV") else n
-             for n in _HELD for m in (TILTS if n in ("gain_keV", "offset_keV", "fwhm_keV")
-                                      else [None])]
+def _joint_text(extra="", group=None, detector=None, held=_HELD):
+    """The joint run file; ``detector``: both measurements in that detector group (one
+    detector seeing the sample at both tilts); ``held``: the nuisances fixed."""
+    calibration = ("gain_keV", "offset_keV", "fwhm_keV")
+    owners = [detector] if detector else list(TILTS)
+    fixed = [f"{n}@{m}" if n in calibration else n
+             for n in held for m in (owners if n in calibration else [None])]
     text = _SAMPLE.format(fixed=repr(sorted(set(fixed))).replace("'", '"')) + extra
     for name, tilt in TILTS.items():
         text += f'\n[[measurement]]\nname = "{name}"\nspectrum = "{name}.csv"\n'
         if group:
             text += f'charge_group = "{group}"\n'
+        if detector:
+            text += f'detector_group = "{detector}"\n'
         text += _TABLES.format(prefix="[measurement.", tilt=tilt)
     return text
 
@@ -191,7 +196,7 @@ def test_per_measurement_fit_keys_go_to_their_measurement():
     with pytest.raises(InputError, match="belongs to one spectrum"):
         measurement_fit({"free": {"gain_keV": True}}, name="a", group=None, names=["a", "b"],
                         groups={}, windows=None, source="j.toml")
-    with pytest.raises(InputError, match="no measurement or charge group called 'c'"):
+    with pytest.raises(InputError, match="no measurement or group called 'c'"):
         measurement_fit({"fixed": ["gain_keV@c"]}, name="a", group=None, names=["a", "b"],
                         groups={}, windows=None, source="j.toml")
 
@@ -236,6 +241,156 @@ def test_a_charge_group_shares_one_fluence(world, tmp_path):
     joint = prepare_joint(load_joint(tmp_path / "grouped.toml"))
     assert [n for n in joint.names if n.startswith("fluence")] == ["fluence_scale@run1"]
     assert joint.takes[0][1] == joint.takes[1][1] == joint.names.index("fluence_scale@run1")
+
+
+# ----- detector groups: one detector, one calibration and resolution -----
+#: the calibration and resolution free this time, the rest held as above
+_HELD_BUT_DETECTOR = ["straggling", "slope.Ta", "slope.Si"]
+
+
+def _grouped_world(world, tmp_path, detector):
+    """The world's spectra beside a joint run file with the calibration free, both
+    measurements in detector group ``detector`` (None: each its own)."""
+    for name in TILTS:
+        (tmp_path / f"{name}.csv").write_bytes((world / f"{name}.csv").read_bytes())
+    path = tmp_path / f"{detector or 'separate'}.toml"
+    path.write_text(_joint_text(detector=detector, held=_HELD_BUT_DETECTOR))
+    return path
+
+
+def test_a_detector_group_shares_one_calibration_and_resolution(world, tmp_path):
+    grouped = prepare_joint(load_joint(_grouped_world(world, tmp_path, "det")))
+    separate = prepare_joint(load_joint(_grouped_world(world, tmp_path, None)))
+    # one gain, offset and resolution for the group; a fluence per exposure
+    assert grouped.names == ["film.areal_density", "stopping.Ta", "stopping.Si",
+                             "fluence_scale@normal", "gain_keV@det", "offset_keV@det",
+                             "fwhm_keV@det", "fluence_scale@tilt60"]
+    assert grouped.ndim == 8 and separate.ndim == 11
+    assert grouped.detector_groups == ["det", "det"]
+    for quantity in ("gain_keV", "offset_keV", "fwhm_keV"):
+        k = grouped.names.index(f"{quantity}@det")
+        assert [take[list(part.spec.names).index(quantity)]
+                for take, part in zip(grouped.takes, grouped.parts)] == [k, k]
+    # with the separate values equal, the grouped objective is the separate one
+    by_name = {"film.areal_density": 305.0, "stopping.Ta": 1.03, "stopping.Si": 0.99,
+               "fluence_scale@normal": 0.98, "fluence_scale@tilt60": 1.02,
+               "gain_keV": 2.004, "offset_keV": 19.2, "fwhm_keV": 15.8}
+    theta = np.array([by_name[n.replace("@det", "")] for n in grouped.names])
+    theta_separate = np.array([by_name[n.split("@")[0] if n.split("@")[0] in
+                                       ("gain_keV", "offset_keV", "fwhm_keV") else n]
+                               for n in separate.names])
+    assert grouped.log_likelihood(theta) == pytest.approx(
+        separate.log_likelihood(theta_separate), rel=1e-12)
+    for k in range(2):
+        assert np.allclose(grouped.predict(theta, measurement=k),
+                           separate.predict(theta_separate, measurement=k), rtol=1e-12, atol=0)
+    # and the group's one gain moves both spectra
+    moved = theta.copy()
+    moved[grouped.names.index("gain_keV@det")] *= 1.01
+    for k in range(2):
+        assert not np.allclose(grouped.predict(moved, measurement=k),
+                               grouped.predict(theta, measurement=k))
+
+
+def test_detector_group_names_in_the_fit_table():
+    names, detectors = ["a", "b", "c"], {"det": ["a", "b"]}
+
+    def fit_of(fit, name):
+        return measurement_fit(fit, name=name, group=None, names=names, groups={},
+                               windows=None, source="j.toml",
+                               detector_group="det" if name in ("a", "b") else None,
+                               detector_groups=detectors)
+
+    fit = {"free": {"gain_keV@det": {"normal": [2.0, 0.01]}, "gain_keV@c": True},
+           "fixed": ["fwhm_keV@det", "offset_keV@c", "fluence_scale@a"]}
+    assert fit_of(fit, "a") == {"free": {"gain_keV": {"normal": [2.0, 0.01]}},
+                                "fixed": ["fwhm_keV", "fluence_scale"]}
+    assert fit_of(fit, "b") == {"free": {"gain_keV": {"normal": [2.0, 0.01]}},
+                                "fixed": ["fwhm_keV"]}
+    assert fit_of(fit, "c") == {"free": {"gain_keV": True}, "fixed": ["offset_keV"]}
+    with pytest.raises(InputError) as err:  # a member's own name is refused
+        fit_of({"fixed": ["gain_keV@a"]}, "c")
+    assert err.value.message == ("measurement 'a' shares its detector in group 'det'; "
+                                 "allowed: gain_keV@det")
+    assert err.value.where == "j.toml: fit.fixed"
+    with pytest.raises(InputError, match="'fluence_scale' does not belong to detector group "
+                                         "'det'; allowed: fluence_scale@a"):
+        fit_of({"free": {"fluence_scale@det": True}}, "a")
+    with pytest.raises(InputError, match="allowed: offset_keV@det, offset_keV@c$"):
+        fit_of({"free": {"offset_keV": True}}, "a")
+    with pytest.raises(InputError, match="detector groups: det"):
+        fit_of({"free": {"gain_keV@d": True}}, "a")
+
+
+def test_members_of_a_detector_group_have_one_detector(world):
+    text = _joint_text(detector="det", held=_HELD_BUT_DETECTOR)
+    found = forward.parse_measurements(text, source="j.toml", base_dir=world)
+    assert [m.detector_group for m in found.measurements] == ["det", "det"]
+    assert found.detector_groups() == {"det": ["normal", "tilt60"]} and found.groups() == {}
+    # another offset (the calibration), another solid angle (another detector) are refused
+    at = text.index('name = "tilt60"')
+    for old, new, key in (("offset_keV = 20.0", "offset_keV = 21.5", "calibration.offset_keV"),
+                          ("solid_angle_msr = 3.0", "solid_angle_msr = 2.0",
+                           "detector.solid_angle_msr")):
+        with pytest.raises(InputError) as err:
+            forward.parse_measurements(text[:at] + text[at:].replace(old, new, 1),
+                                       source="j.toml", base_dir=world)
+        assert err.value.where == "j.toml: measurement.tilt60.detector_group"
+        assert err.value.message.startswith(f"measurements 'normal' and 'tilt60' share detector "
+                                            f"group 'det' but {key} is ")
+    # a group named like a measurement would make gain_keV@<name> ambiguous
+    with pytest.raises(InputError, match="detector group 'normal' has the name of a "
+                                         "measurement"):
+        forward.parse_measurements(_joint_text(detector="normal", held=_HELD_BUT_DETECTOR),
+                                   source="j.toml", base_dir=world)
+    # a series member changes the calibration of every member alike, or of none
+    with pytest.raises(InputError) as err:
+        found.with_overrides({"tilt60": {"calibration": {"offset_keV": 21.0}}},
+                             source="s.toml: member[a]")
+    assert err.value.where == "s.toml: member[a].measurement.tilt60"
+    assert "share detector group 'det'" in err.value.message
+    both = found.with_overrides({n: {"calibration": {"offset_keV": 21.0}} for n in TILTS})
+    assert [m.run.calibration.offset_keV for m in both.measurements] == [21.0, 21.0]
+
+
+def test_charge_groups_and_detector_groups_together(world, tmp_path):
+    # two detectors (a, b), each recording two exposures (1, 2): the charge is one per
+    # exposure, the calibration one per detector
+    for name in TILTS:
+        (tmp_path / f"{name}.csv").write_bytes((world / f"{name}.csv").read_bytes())
+    text = _SAMPLE.format(fixed='["straggling", "slope.Ta", "slope.Si"]')
+    for name, (spectrum, charge, detector) in {"a1": ("normal", "x1", "da"),
+                                               "b1": ("tilt60", "x1", "db"),
+                                               "a2": ("normal", "x2", "da"),
+                                               "b2": ("tilt60", "x2", "db")}.items():
+        text += (f'\n[[measurement]]\nname = "{name}"\nspectrum = "{spectrum}.csv"\n'
+                 f'charge_group = "{charge}"\ndetector_group = "{detector}"\n'
+                 + _TABLES.format(prefix="[measurement.", tilt=TILTS[spectrum]))
+    (tmp_path / "four.toml").write_text(text)
+    joint = prepare_joint(load_joint(tmp_path / "four.toml"))
+    assert joint.names[3:] == ["fluence_scale@x1", "gain_keV@da", "offset_keV@da", "fwhm_keV@da",
+                               "gain_keV@db", "offset_keV@db", "fwhm_keV@db",
+                               "fluence_scale@x2"]
+
+
+def test_a_detector_group_in_the_result_file_and_report(world, tmp_path):
+    # a few dozen steps: what the result file and the report make of the group's names
+    from inversion.report._data import read_report_data
+
+    path = _grouped_world(world, tmp_path, "det")
+    with pytest.warns(inversion.NotConvergedWarning):  # 30 steps are far too few, as meant
+        result = inversion.invert(path, None, tmp_path / "det.h5", seed=2, progress=False,
+                                  max_steps=30, workers=1)
+    assert result.names == prepare_joint(load_joint(path)).names
+    for name in TILTS:
+        assert result.measurements[name]["@attrs"]["detector_group"] == "det"
+    data = read_report_data(tmp_path / "det.h5")
+    for name in TILTS:
+        part = data.measurements[name]
+        assert part.calibration_source.startswith(
+            "posterior median of gain_keV@det and offset_keV@det")
+        assert part.calibration["keV_per_channel"] == pytest.approx(
+            result.summary["gain_keV@det"]["median"])
 
 
 # ----- the inversion -----

@@ -8,14 +8,16 @@ nuisances (``stopping.<El>``, ``slope.<El>``, ``straggling_scale``).  What belon
 spectrum is not: the calibration (``gain_keV``, ``offset_keV``), the resolution
 (``fwhm_keV``), the fluence (``fluence_scale``) and the background levels, named
 ``<quantity>@<measurement>``; measurements of one ``charge_group`` share one
-``fluence_scale@<group>``.  An index map per measurement (:attr:`JointObjective.takes`) picks
-its objective's parameters out of the joint vector, so the log-likelihood is the sum of each
-spectrum's Poisson log-likelihood over its own window, and the log-prior is taken once over
-the joint parameters.
+``fluence_scale@<group>``, measurements of one ``detector_group`` one ``gain_keV@<group>``,
+``offset_keV@<group>`` and ``fwhm_keV@<group>``.  An index map per measurement
+(:attr:`JointObjective.takes`) picks its objective's parameters out of the joint vector, so
+the log-likelihood is the sum of each spectrum's Poisson log-likelihood over its own window,
+and the log-prior is taken once over the joint parameters.
 
 The ``[fit]`` table of a joint run is one table: keys of ``fit.free`` and ``fit.fixed`` that
 belong to one spectrum carry ``@<measurement>`` (or ``@<charge group>`` for a shared
-fluence); :func:`measurement_fit` gives each measurement's objective its own table.
+fluence, ``@<detector group>`` for a shared calibration and resolution);
+:func:`measurement_fit` gives each measurement's objective its own table.
 """
 
 from __future__ import annotations
@@ -31,7 +33,7 @@ from ._objective import Objective, log_prior_of
 from ._roles import Role
 
 __all__ = ["JointObjective", "measurement_fit", "PER_MEASUREMENT_ROLES",
-           "PER_MEASUREMENT_NAMES", "joint_name"]
+           "PER_MEASUREMENT_NAMES", "DETECTOR_ROLES", "DETECTOR_NAMES", "joint_name"]
 
 #: roles whose parameters belong to one spectrum (named ``<quantity>@<measurement>``)
 PER_MEASUREMENT_ROLES = (Role.FLUENCE_SCALE, Role.GAIN, Role.OFFSET, Role.FWHM,
@@ -39,18 +41,40 @@ PER_MEASUREMENT_ROLES = (Role.FLUENCE_SCALE, Role.GAIN, Role.OFFSET, Role.FWHM,
 #: their names in ``fit.free`` and ``fit.fixed`` (before ``@``)
 PER_MEASUREMENT_NAMES = ("fluence_scale", "gain_keV", "offset_keV", "fwhm_keV",
                          "background.level", "background.low", "background.high")
+#: roles a detector group shares (the detector's calibration and resolution)
+DETECTOR_ROLES = (Role.GAIN, Role.OFFSET, Role.FWHM)
+#: their names in ``fit.free`` and ``fit.fixed`` (before ``@``)
+DETECTOR_NAMES = ("gain_keV", "offset_keV", "fwhm_keV")
 
 
-def joint_name(name: str, role: Role, measurement: str, group: str | None) -> str:
-    """The joint parameter name of one measurement's parameter."""
+def joint_name(name: str, role: Role, measurement: str, group: str | None,
+               detector_group: str | None = None) -> str:
+    """The joint parameter name of one measurement's parameter.
+
+    Parameters
+    ----------
+    name : str
+        The parameter's name in the measurement's own objective (``gain_keV``).
+    role : Role
+    measurement : str
+    group : str or None
+        The measurement's charge group (owns its fluence).
+    detector_group : str or None
+        The measurement's detector group (owns its calibration and resolution).
+    """
     if role not in PER_MEASUREMENT_ROLES:
         return name
-    owner = group if (role is Role.FLUENCE_SCALE and group) else measurement
+    owner = measurement
+    if role is Role.FLUENCE_SCALE and group:
+        owner = group
+    elif role in DETECTOR_ROLES and detector_group:
+        owner = detector_group
     return f"{name}@{owner}"
 
 
 def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, groups,
-                    windows, source: str) -> dict:
+                    windows, source: str, detector_group: str | None = None,
+                    detector_groups=None) -> dict:
     """The ``[fit]`` table as measurement ``name``'s own objective reads it.
 
     Parameters
@@ -69,13 +93,20 @@ def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, gr
         The measurement's own ``windows``.
     source : str
         The run file (for messages).
+    detector_group : str or None
+        Its detector group.
+    detector_groups : dict, optional
+        ``{detector group: [measurement names]}``.
 
     Raises
     ------
     forward.InputError
         A per-spectrum quantity without ``@``, an ``@`` naming no measurement or group, a
-        fluence named after a measurement of a charge group, a shared quantity with ``@``.
+        fluence named after a measurement of a charge group, a calibration or resolution
+        named after a measurement of a detector group, a quantity named after a group that
+        does not own it, a shared quantity with ``@``.
     """
+    owners = _Owners(name, names, groups, detector_groups or {})
     fit = dict(fit or {})
     out = {k: v for k, v in fit.items() if k not in ("free", "fixed")}
     free = fit.get("free", {})
@@ -83,7 +114,7 @@ def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, gr
     mine_free, mine_fixed = {}, []
     if isinstance(free, dict):
         for key, value in free.items():
-            keep = _mine(key, name, group, names, groups, f"{source}: fit.free.{key}")
+            keep = _mine(key, owners, f"{source}: fit.free.{key}")
             if keep is not None:
                 mine_free[keep] = value
     else:
@@ -93,7 +124,7 @@ def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, gr
             if not isinstance(key, str):
                 mine_fixed.append(key)
                 continue
-            keep = _mine(key, name, group, names, groups, f"{source}: fit.fixed")
+            keep = _mine(key, owners, f"{source}: fit.fixed")
             if keep is not None:
                 mine_fixed.append(keep)
     else:
@@ -107,37 +138,61 @@ def measurement_fit(fit: dict | None, *, name: str, group: str | None, names, gr
     return out
 
 
-def _mine(key: str, name, group, names, groups, where):
+class _Owners:
+    """Who owns what in a joint run, seen from one measurement."""
+
+    def __init__(self, name, names, groups, detector_groups):
+        self.name, self.names = name, list(names)
+        self.groups, self.detector_groups = dict(groups), dict(detector_groups)
+
+    def allowed(self, base: str) -> list:
+        """Every owner ``base`` may be named after: its groups, then the measurements in
+        none of them."""
+        groups = self.groups if base == "fluence_scale" else \
+            self.detector_groups if base in DETECTOR_NAMES else {}
+        grouped = {m for members in groups.values() for m in members}
+        return list(groups) + [n for n in self.names if n not in grouped]
+
+
+def _mine(key: str, owners: _Owners, where):
     """The key as this measurement's objective names it, or None when it is another's."""
     base, at, owner = key.partition("@")
-    examples = ", ".join(f"{base}@{n}" for n in names)
     if not at:
         if base in PER_MEASUREMENT_NAMES:
+            examples = ", ".join(f"{base}@{n}" for n in owners.allowed(base))
             raise InputError(f"{base!r} belongs to one spectrum in a run file of several "
-                             f"measurements; allowed: {examples}"
-                             + (" (or @<charge group> for a shared fluence)"
-                                if base == "fluence_scale" and groups else ""), where=where)
+                             f"measurements; allowed: {examples}", where=where)
         return key
     if base not in PER_MEASUREMENT_NAMES:
         raise InputError(f"{base!r} is shared by every measurement (a property of the sample "
                          f"or its materials); allowed: {base!r} without '@'", where=where)
-    if owner not in names and owner not in groups:
-        raise InputError(f"no measurement or charge group called {owner!r}; measurements: "
-                         f"{', '.join(names)}" + (f"; charge groups: {', '.join(groups)}"
-                                                  if groups else ""), where=where)
+    groups, detectors = owners.groups, owners.detector_groups
+    if owner not in owners.names and owner not in groups and owner not in detectors:
+        raise InputError(f"no measurement or group called {owner!r}; measurements: "
+                         f"{', '.join(owners.names)}"
+                         + (f"; charge groups: {', '.join(groups)}" if groups else "")
+                         + (f"; detector groups: {', '.join(detectors)}" if detectors else ""),
+                         where=where)
+    examples = ", ".join(f"{base}@{n}" for n in owners.allowed(base))
     if base == "fluence_scale":
-        members = groups.get(owner)
-        if members is None and any(owner in m for m in groups.values()):
-            shared = next(g for g, m in groups.items() if owner in m)
-            raise InputError(f"measurement {owner!r} shares its charge in group {shared!r}; "
-                             f"allowed: fluence_scale@{shared}", where=where)
-        if owner == name or (members is not None and name in members):
-            return base
-        return None
-    if owner in groups:
-        raise InputError(f"{base!r} belongs to one measurement, not to charge group "
-                         f"{owner!r}; allowed: {examples}", where=where)
-    return base if owner == name else None
+        mine, others = groups, detectors
+    elif base in DETECTOR_NAMES:
+        mine, others = detectors, groups
+    else:
+        mine, others = {}, {**groups, **detectors}
+    if owner in others:
+        kind = "charge group" if owner in groups else "detector group"
+        raise InputError(f"{base!r} does not belong to {kind} {owner!r}; allowed: {examples}",
+                         where=where)
+    members = mine.get(owner)
+    if members is None:
+        shared = next((g for g, m in mine.items() if owner in m), None)
+        if shared is not None:
+            kind = "charge" if mine is groups else "detector"
+            raise InputError(f"measurement {owner!r} shares its {kind} in group {shared!r}; "
+                             f"allowed: {base}@{shared}", where=where)
+        return base if owner == owners.name else None
+    return base if owners.name in members else None
 
 
 class JointObjective:
@@ -152,6 +207,8 @@ class JointObjective:
         The measurements' names.
     groups : list of (str or None)
         Each measurement's charge group.
+    detector_groups : list of (str or None), optional
+        Each measurement's detector group.
 
     Attributes
     ----------
@@ -161,16 +218,19 @@ class JointObjective:
         ``theta[takes[k]]`` is measurement ``k``'s parameter vector.
     """
 
-    def __init__(self, parts, names, groups=None):
+    def __init__(self, parts, names, groups=None, detector_groups=None):
         self.parts = list(parts)
         self.measurement_names = list(names)
         groups = list(groups or [None] * len(self.parts))
+        #: each measurement's detector group (None: its own calibration and resolution)
+        self.detector_groups = list(detector_groups or [None] * len(self.parts))
         first = self.parts[0]
         shared = [p for p in first.spec.parameters if p.role not in PER_MEASUREMENT_ROLES]
         params = list(shared)
         position = {p.name: i for i, p in enumerate(params)}
         takes = []
-        for part, name, group in zip(self.parts, self.measurement_names, groups):
+        for part, name, group, detector in zip(self.parts, self.measurement_names, groups,
+                                               self.detector_groups):
             mine = [p.name for p in part.spec.parameters if p.role not in PER_MEASUREMENT_ROLES]
             if mine != [p.name for p in shared]:
                 if first.spec.profile == "nodes":
@@ -185,10 +245,19 @@ class JointObjective:
                                  "are one for every measurement", where=first.spec.source)
             take = []
             for p in part.spec.parameters:
-                joint = joint_name(p.name, p.role, name, group)
+                joint = joint_name(p.name, p.role, name, group, detector)
                 if joint not in position:
                     position[joint] = len(params)
                     params.append(dataclasses.replace(p, name=joint))
+                elif p.role in PER_MEASUREMENT_ROLES and \
+                        params[position[joint]].prior.describe() != p.prior.describe():
+                    # one parameter of a group: the run-file checks give its members one
+                    # value, so one default prior; a difference here is a defect upstream
+                    raise InputError(f"measurement {name!r} gives {joint} the prior "
+                                     f"{p.prior.describe()}, another member of its group "
+                                     f"{params[position[joint]].prior.describe()}; allowed: "
+                                     "one value for every member of a group",
+                                     where=first.spec.source)
                 take.append(position[joint])
             takes.append(np.asarray(take, dtype=np.intp))
         self.takes = takes

@@ -343,8 +343,10 @@ def _measurement_data(data: ReportData, result: Result, name: str, spec: dict) -
                                ppc_p_value=None)
     _spectrum_fields(part, spec)
     attrs = spec.get("@attrs", {})
+    # a measurement of a detector group has its calibration under the group's name
+    owner = _text(attrs["detector_group"]) if "detector_group" in attrs else name
     part.calibration, part.calibration_source = _calibration(
-        part, result, attrs.get("run_calibration_keV"), suffix=f"@{name}")
+        part, result, attrs.get("run_calibration_keV"), suffix=f"@{owner}")
     _predictive_check(part, {**attrs, **{k: v for k, v in spec.items() if k != "@attrs"}})
     return part
 

@@ -173,9 +173,10 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
         From :func:`inversion.sample._convergence.diagnostics`.
     measurements : list of dict, optional
         A joint run's spectra, each ``{name, bands, counts, window, run_calibration_keV,
-        check}``: written as ``/measurements/<name>`` (the datasets of ``/spectrum`` and the
-        spectrum's own predictive check) instead of ``/spectrum``; ``bands`` then gives the
-        profile bands only.
+        check}`` and optionally ``detector_group``: written as ``/measurements/<name>`` (the
+        datasets of ``/spectrum``, the spectrum's own predictive check, the attribute
+        ``detector_group`` when it has one) instead of ``/spectrum``; ``bands`` then gives
+        the profile bands only.
     """
     names, units = spec.names, spec.units
     summary = summarise(np.column_stack([samples, derived]) if derived.size else samples)
@@ -243,6 +244,9 @@ def _spectrum_group(counts, window, bands, run_calibration_keV) -> dict:
 def _measurement_group(m: dict) -> dict:
     """``/measurements/<name>``: the spectrum's datasets and its own predictive check."""
     group = _spectrum_group(m["counts"], m["window"], m["bands"], m["run_calibration_keV"])
+    if m.get("detector_group"):
+        # its calibration and resolution are the parameters <quantity>@<detector group>
+        group["@attrs"]["detector_group"] = str(m["detector_group"])
     check = m.get("check")
     if check is not None:
         group["@attrs"].update(ppc_p_value=check.p_value, model_rejected=check.rejected,
