@@ -4,9 +4,11 @@ Scenarios (invented samples, spectra simulated by the forward model with Poisson
 
 * ``layers``: Ni0.5Ge0.5 film (300e15 atoms/cm2) over a Ge film (200e15) on Si, 4He at
   2000 keV; free: both areal densities, both interface mixing widths, the film's Ni:Ge share,
-  fluence, gain, offset, resolution and the Ge stopping scale (10 parameters).
+  fluence, gain, offset, resolution, the Ge stopping scale, the stopping slopes of Ni, Ge and
+  Si, the straggling scale and correction (15 parameters).
 * ``nodes``: the same beam on a Ni film (250e15) that has mixed into Si (mixing width 60e15);
-  fitted with the free-form profile, 20 nodes, species Ni and Si (20 parameters + fluence).
+  fitted with the free-form profile, 20 nodes, species Ni and Si (20 parameters + fluence and
+  the straggling scale and correction: 23).
 * ``nodes3``: the same beam on a Pt cap (100e15) over a Ni film (200e15) on Si, both
   interfaces mixed (widths 30e15 and 40e15); fitted with the free-form profile, 20 nodes to
   450e15, species Pt, Ni and Si (40 parameters + fluence).

@@ -358,6 +358,11 @@ def _check_groups(found: MeasurementSet, located=None) -> None:
     source = found.source
     by_name = {m.name: m for m in found.measurements}
     for group, names in found.groups().items():
+        if group in by_name:
+            raise InputError(f"charge group {group!r} has the name of a measurement; "
+                             "parameters are named <quantity>@<owner>, so allowed: a charge "
+                             "group name that no measurement has",
+                             where=f"{source}: measurement.{names[0]}.charge_group")
         if len(names) < 2:
             raise InputError(f"charge group {group!r} has one member ({names[0]!r}); a charge "
                              "group joins two or more measurements of one exposure (detectors "

@@ -548,6 +548,7 @@ def _joint_bands(objective, samples, theta_map, *, seed, diag, found):
     measurements, checks = [], []
     bands = None
     detector_groups = getattr(objective, "detector_groups", None) or [None] * len(parts)
+    charge_groups = getattr(objective, "charge_groups", None) or [None] * len(parts)
     for k, (name, part) in enumerate(zip(objective.measurement_names, parts)):
         # the same seed picks the same posterior draws for every spectrum
         b = posterior_bands(part, objective.part_theta(samples, k),
@@ -556,7 +557,8 @@ def _joint_bands(objective, samples, theta_map, *, seed, diag, found):
         bands = b if bands is None else bands
         measurements.append(dict(name=name, bands=b, counts=part.counts, window=part.mask,
                                  run_calibration_keV=_run_calibration(part), check=b.check,
-                                 detector_group=detector_groups[k]))
+                                 detector_group=detector_groups[k],
+                                 charge_group=charge_groups[k]))
         if b.check is not None:
             checks.append(b.check)
             if b.check.rejected:

@@ -248,13 +248,14 @@ def test_a_charge_group_shares_one_fluence(world, tmp_path):
 _HELD_BUT_DETECTOR = ["straggling", "slope.Ta", "slope.Si"]
 
 
-def _grouped_world(world, tmp_path, detector):
+def _grouped_world(world, tmp_path, detector, group=None):
     """The world's spectra beside a joint run file with the calibration free, both
-    measurements in detector group ``detector`` (None: each its own)."""
+    measurements in detector group ``detector`` (None: each its own) and charge group
+    ``group``."""
     for name in TILTS:
         (tmp_path / f"{name}.csv").write_bytes((world / f"{name}.csv").read_bytes())
     path = tmp_path / f"{detector or 'separate'}.toml"
-    path.write_text(_joint_text(detector=detector, held=_HELD_BUT_DETECTOR))
+    path.write_text(_joint_text(detector=detector, group=group, held=_HELD_BUT_DETECTOR))
     return path
 
 
@@ -377,13 +378,15 @@ def test_a_detector_group_in_the_result_file_and_report(world, tmp_path):
     # a few dozen steps: what the result file and the report make of the group's names
     from inversion.report._data import read_report_data
 
-    path = _grouped_world(world, tmp_path, "det")
+    path = _grouped_world(world, tmp_path, "det", group="shot")
     with pytest.warns(inversion.NotConvergedWarning):  # 30 steps are far too few, as meant
         result = inversion.invert(path, None, tmp_path / "det.h5", seed=2, progress=False,
                                   max_steps=30, workers=1)
     assert result.names == prepare_joint(load_joint(path)).names
+    assert "fluence_scale@shot" in result.names
     for name in TILTS:
         assert result.measurements[name]["@attrs"]["detector_group"] == "det"
+        assert result.measurements[name]["@attrs"]["charge_group"] == "shot"
     data = read_report_data(tmp_path / "det.h5")
     for name in TILTS:
         part = data.measurements[name]

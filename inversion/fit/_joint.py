@@ -222,6 +222,8 @@ class JointObjective:
         self.parts = list(parts)
         self.measurement_names = list(names)
         groups = list(groups or [None] * len(self.parts))
+        #: each measurement's charge group (None: its own fluence)
+        self.charge_groups = list(groups)
         #: each measurement's detector group (None: its own calibration and resolution)
         self.detector_groups = list(detector_groups or [None] * len(self.parts))
         first = self.parts[0]

@@ -173,10 +173,10 @@ def write_posterior(path, *, spec, samples, log_posterior, discard: int, thin: i
         From :func:`inversion.sample._convergence.diagnostics`.
     measurements : list of dict, optional
         A joint run's spectra, each ``{name, bands, counts, window, run_calibration_keV,
-        check}`` and optionally ``detector_group``: written as ``/measurements/<name>`` (the
-        datasets of ``/spectrum``, the spectrum's own predictive check, the attribute
-        ``detector_group`` when it has one) instead of ``/spectrum``; ``bands`` then gives
-        the profile bands only.
+        check}`` and optionally ``detector_group`` and ``charge_group``: written as
+        ``/measurements/<name>`` (the datasets of ``/spectrum``, the spectrum's own predictive
+        check, the attributes ``detector_group`` and ``charge_group`` when it has them) instead
+        of ``/spectrum``; ``bands`` then gives the profile bands only.
     """
     names, units = spec.names, spec.units
     summary = summarise(np.column_stack([samples, derived]) if derived.size else samples)
@@ -247,6 +247,9 @@ def _measurement_group(m: dict) -> dict:
     if m.get("detector_group"):
         # its calibration and resolution are the parameters <quantity>@<detector group>
         group["@attrs"]["detector_group"] = str(m["detector_group"])
+    if m.get("charge_group"):
+        # its fluence is the parameter fluence_scale@<charge group>
+        group["@attrs"]["charge_group"] = str(m["charge_group"])
     check = m.get("check")
     if check is not None:
         group["@attrs"].update(ppc_p_value=check.p_value, model_rejected=check.rejected,
