@@ -35,13 +35,35 @@ TAIL_WIDTHS = 8.0
 def log_prior_of(parameters, theta) -> float:
     """Sum of the log prior densities of ``parameters`` at ``theta`` (-inf outside any
     support); one copy for every objective."""
-    total = 0.0
-    for value, p in zip(theta, parameters):
-        lp = p.prior.logpdf(value)
-        if lp == -math.inf or lp != lp:
-            return -np.inf
-        total += float(lp)
-    return total
+    return _PriorSum(parameters)(theta)
+
+
+class _PriorSum:
+    """:func:`log_prior_of` with each prior's closed form looked up once (objectives keep one
+    and call it for every draw): the same densities added in the same order."""
+
+    def __init__(self, parameters):
+        self.parameters = parameters
+        self.terms = tuple(p.prior.closed_form() for p in parameters)
+
+    def __call__(self, theta) -> float:
+        total = 0.0
+        for value, (logpdf, constants) in zip(np.asarray(theta, dtype=float).tolist(),
+                                              self.terms):
+            lp = logpdf(value, constants)
+            if lp == -math.inf or lp != lp:
+                return -np.inf
+            total += lp
+        return total
+
+    @classmethod
+    def of(cls, owner) -> "_PriorSum":
+        """The one of ``owner.spec.parameters``, kept in ``owner`` (built again when the
+        parameter list is another)."""
+        cached = owner.__dict__.get("_prior_sum")
+        if cached is None or cached.parameters is not owner.spec.parameters:
+            cached = owner.__dict__["_prior_sum"] = cls(owner.spec.parameters)
+        return cached
 
 
 class ModelBuilder:
@@ -234,7 +256,7 @@ class Objective:
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_model"] = None
-        for key in ("_profiles", "_whole"):
+        for key in ("_profiles", "_whole", "_prior_sum"):
             state.pop(key, None)
         return state
 
@@ -478,7 +500,7 @@ class Objective:
     # ----- the three log densities -----
     def log_prior(self, theta) -> float:
         """Sum of the parameters' log prior densities (-inf outside any support)."""
-        return log_prior_of(self.spec.parameters, theta)
+        return _PriorSum.of(self)(theta)
 
     def log_likelihood(self, theta) -> float:
         """Poisson log-likelihood of the counts in the window (zeros included).
@@ -496,7 +518,7 @@ class Objective:
     def log_posterior(self, theta) -> float:
         """log_prior + log_likelihood; -inf before the model runs when outside the prior."""
         lp = self.log_prior(theta)
-        if not np.isfinite(lp):
+        if not math.isfinite(lp):
             return -np.inf
         return lp + self.log_likelihood(theta)
 

@@ -64,6 +64,11 @@ class Prior:
         checked in tests, at a fraction of the cost of scipy's generic machinery)."""
         return _LOGPDF[self.kind](float(x), self._consts)
 
+    def closed_form(self):
+        """``(function, constants)`` with ``function(x, constants) == logpdf(x)`` for a float
+        ``x``: what :meth:`logpdf` calls, for loops that evaluate it many times."""
+        return _LOGPDF[self.kind], self._consts
+
     @property
     def _consts(self):
         c = self.__dict__.get("_c")
