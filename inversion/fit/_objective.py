@@ -136,6 +136,51 @@ class _Draw:
     background: np.ndarray  # (2,) levels
 
 
+class _DrawPlan:
+    """What :meth:`Objective._draw` works out once per fit: each role's slots, in the order
+    of :attr:`RoleIndex.roles`, the physical limits of every parameter (the tests of
+    :meth:`Role.outside`, on plain floats) and the nuisance's fields."""
+
+    def __init__(self, index, default_nuisance):
+        self.index = index
+        self.slots = tuple((role, index[role]) for role in index.roles)
+        strict, loose, interval = [], [], []
+        for role, (pos, _) in self.slots:
+            if role.upper is not None:
+                # outside unless lower < value < upper (a NaN is outside)
+                interval += [(int(i), role.lower, role.upper) for i in pos]
+            elif role.lower is not None:
+                # outside at or below (strict) or below the limit (a NaN passes)
+                (strict if role.strict else loose).extend((int(i), role.lower) for i in pos)
+        self.strict, self.loose, self.interval = tuple(strict), tuple(loose), tuple(interval)
+        self.per_element_fields = tuple(role.field for role in Role if role.per_element)
+        self.nuisance_fields = tuple(f.name for f in dataclasses.fields(default_nuisance)
+                                     if f.init)
+
+    def outside(self, values) -> bool:
+        """True if any of ``values`` (the parameter vector as a list of floats) lies outside
+        its role's physical limits."""
+        for i, lower in self.strict:
+            if values[i] <= lower:
+                return True
+        for i, lower in self.loose:
+            if values[i] < lower:
+                return True
+        for i, lower, upper in self.interval:
+            if not lower < values[i] < upper:
+                return True
+        return False
+
+    @classmethod
+    def of(cls, objective) -> "_DrawPlan":
+        """The objective's plan, kept in it (built again for another role index)."""
+        plan = objective.__dict__.get("_draw_plan")
+        index = objective.spec.index
+        if plan is None or plan.index is not index:
+            plan = objective.__dict__["_draw_plan"] = cls(index, objective.default_nuisance)
+        return plan
+
+
 class _Profiles:
     """The fit's profile construction: one slice table per draw.
 
@@ -256,7 +301,7 @@ class Objective:
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_model"] = None
-        for key in ("_profiles", "_whole", "_prior_sum"):
+        for key in ("_profiles", "_whole", "_prior_sum", "_draw_plan"):
             state.pop(key, None)
         return state
 
@@ -349,21 +394,24 @@ class Objective:
     def _draw(self, theta) -> _Draw | None:
         """Free parameters to profile parameters, nuisance and background levels; None
         outside the physical limits."""
-        index = self.spec.index
+        plan = _DrawPlan.of(self)
         theta = np.asarray(theta, dtype=float)
-        for role in index.roles:
-            if role.outside(theta[index[role][0]]):
+        if theta.ndim == 1:
+            if plan.outside(theta.tolist()):
                 return None
+        else:
+            for role, (pos, _) in plan.slots:
+                if role.outside(theta[pos]):
+                    return None
         thickness = self.base_thickness.copy()
         mixing = np.zeros(self.n_interfaces)
         compositions = self.base_compositions
         node_params = np.empty(0)
         background = np.zeros(2)
-        fields = {role.field: np.array(getattr(self.default_nuisance, role.field), dtype=float,
-                                       copy=True)
-                  for role in Role if role.per_element}
-        for role in index.roles:
-            pos, target = index[role]
+        default = self.default_nuisance
+        fields = {name: np.array(getattr(default, name), dtype=float, copy=True)
+                  for name in plan.per_element_fields}
+        for role, (pos, target) in plan.slots:
             if role is Role.AREAL_DENSITY:
                 thickness[target] = theta[pos]
             elif role is Role.MIXING:
@@ -379,7 +427,10 @@ class Objective:
                 fields[role.field][target] = theta[pos]
             else:
                 fields[role.field] = theta[pos[0]]
-        nuisance = dataclasses.replace(self.default_nuisance, **fields)
+        # dataclasses.replace(default, **fields), without its per-call look-up of the fields
+        values = {name: getattr(default, name) for name in plan.nuisance_fields}
+        values.update(fields)
+        nuisance = type(default)(**values)
         return _Draw(thickness, mixing, compositions, node_params, nuisance, background)
 
     def _shared(self, theta, positions, targets):
