@@ -209,8 +209,11 @@ class _Profiles:
         self._nodes = None
 
     def nodes(self, model) -> NodeProfile:
-        if self._nodes is None or self._nodes.edges_1e15.size != model.grid.edges_1e15.size \
-                or not np.array_equal(self._nodes.edges_1e15, model.grid.edges_1e15):
+        edges = model.grid.edges_1e15
+        if self._nodes is not None and self._nodes.edges_1e15 is edges:
+            return self._nodes  # built on this very array (the usual case: no comparison)
+        if self._nodes is None or self._nodes.edges_1e15.size != edges.size \
+                or not np.array_equal(self._nodes.edges_1e15, edges):
             n = self.node_settings
             self._nodes = NodeProfile(model.grid.edges_1e15, self.n_species, n["columns"],
                                       n["node_depth_1e15"], n["below"],
