@@ -431,6 +431,8 @@ class ForwardModel:
         with np.errstate(divide="ignore"):
             log_ratio = np.log(ratio)  # -inf where the ratio is 0 (never at table energies > 0)
         self._bohr, self._ls_ratio, self._ls_log, self._ls_dlog = bohr, ratio, log_ratio, dlog
+        self._ls_positive = ratio > 0
+        self._ls_all_positive = bool(self._ls_positive.all())
         self._corrected = (self.straggling_law_exponent, W, dW)
 
         screening = None if phys.screening == "none" else phys.screening
@@ -844,7 +846,9 @@ class ForwardModel:
                 raise InputError(f"{name}={v!r}; it must be a finite number > 0"
                                  + (" (or 0 for fwhm_keV)" if name == "fwhm_keV" else ""),
                                  where=f"nuisance: {name}")
-        if not np.all(np.isfinite(nu.stopping_scale) & (nu.stopping_scale > 0)):
+        # min > 0 is False for NaN and -inf, max < inf catches +inf: two passes, no temporaries
+        scale = nu.stopping_scale
+        if scale.size and not (scale.min() > 0.0 and scale.max() < math.inf):
             raise InputError("stopping scales must be finite and > 0", where="nuisance: stopping_scale")
         w_scale = float(nu.straggling_scale)
         if not (math.isfinite(w_scale) and w_scale >= 0.0):
@@ -854,7 +858,7 @@ class ForwardModel:
         slope = nu.stopping_slope
         if slope.size == 0:
             slope = self._zero_slope
-        elif not np.all(np.isfinite(slope)):
+        elif not (slope.min() > -math.inf and slope.max() < math.inf):
             raise InputError("stopping slopes must be finite numbers", where="nuisance: stopping_slope")
         yield_factor = self._yield_base * nu.fluence_scale
         edges = self.channel_edges_keV(nu)[self.first_channel:]
@@ -890,8 +894,9 @@ class ForwardModel:
                              where="nuisance: straggling_correction")
         if not self.straggling:
             return self._W, self._dW
-        W = np.where(self._ls_ratio > 0, self._bohr * np.exp(a * self._ls_log),
-                     self._bohr if a == 0 else 0.0)
+        W = self._bohr * np.exp(a * self._ls_log)
+        if not self._ls_all_positive:
+            W = np.where(self._ls_positive, W, self._bohr if a == 0 else 0.0)
         dW = a * W * self._ls_dlog
         self._corrected = (a, W, dW)
         return W, dW
