@@ -304,13 +304,15 @@ class Objective:
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_model"] = None
-        for key in ("_profiles", "_whole", "_prior_sum", "_draw_plan"):
+        for key in ("_profiles", "_whole", "_prior_sum", "_draw_plan", "_window_rows",
+                    "_no_background"):
             state.pop(key, None)
         return state
 
     def __setstate__(self, state):
         self.__dict__.update(state)
         self._profiles = _Profiles(self.spec, self.n_interfaces, self.substrate)
+        self._window_arrays()
 
     @property
     def model(self):
@@ -348,6 +350,17 @@ class Objective:
         self._log_k_factorial = float(np.sum(gammaln(k + 1.0)))
         lo, hi = self.channels[0], self.channels[-1]
         self._bg_ramp = (self.channels - lo) / max(hi - lo, 1)
+        self._window_arrays()
+
+    def _window_arrays(self):
+        """What :meth:`predict` uses on every call: the window channels of a full spectrum (one
+        slice when they are contiguous, a view rather than a gathered copy; else their
+        indices) and the zero background."""
+        lo, hi = int(self.channels[0]), int(self.channels[-1])
+        contiguous = self.channels.size == hi - lo + 1
+        self._window_rows = slice(lo, hi + 1) if contiguous else self.channels
+        self._no_background = np.zeros(self.channels.size)
+        self._no_background.flags.writeable = False
 
     def _window(self):
         spec = self.spec
@@ -451,7 +464,7 @@ class Objective:
             return np.full(self.channels.size, levels[0])
         if kind == "linear":
             return levels[0] + (levels[1] - levels[0]) * self._bg_ramp
-        return np.zeros(self.channels.size)
+        return self._no_background
 
     def unpack(self, theta):
         """What one parameter vector sets: ``thickness``, ``mixing``, ``compositions``,
@@ -536,7 +549,7 @@ class Objective:
         if channels is None:
             # the kernel's channel integrals are differences of large numbers: clip the
             # round-off (|mu| ~ 1e-12 counts) below zero, which no Poisson mean can be
-            return np.maximum(mu[rows], 0.0) + self._window_background(draw)
+            return np.maximum(mu[self._window_rows], 0.0) + self._window_background(draw)
         mu = np.maximum(mu.astype(float), 0.0)
         mu[self.mask] += self._window_background(draw)
         return mu[rows]
@@ -564,7 +577,8 @@ class Objective:
         if not self.use_likelihood:
             return 0.0
         mu = self.predict(theta)
-        if mu is None or not np.all(np.isfinite(mu)) or np.any(mu < 0):
+        # min >= 0 is False for NaN and anything below zero, max < inf catches +inf
+        if mu is None or not (mu.min() >= 0.0 and mu.max() < math.inf):
             return -np.inf
         value = float(np.sum(xlogy(self._k, mu) - mu)) - self._log_k_factorial
         return value if math.isfinite(value) else -np.inf
