@@ -608,6 +608,9 @@ class ForwardModel:
         lay = np.append(g.layer, g.layer[-1])
         film = (lay >= 0) & (lay < n_fin)
         self._edge_film = np.where(film, lay, -1)
+        # what sample_grid indexes with on every call
+        self._edge_in_film = film
+        self._edge_film_or_0 = np.where(film, lay, 0)
         # depth of each film edge below the top of its layer
         within = np.zeros(lay.size)
         for k in range(n_fin):
@@ -628,6 +631,9 @@ class ForwardModel:
                 comp = self._element_fractions(layers[-1])
                 s_sub = comp @ self._S[:, band]
                 self._rho = max(1.0, float(np.max(self._S[:, band] / s_sub)))
+        #: the two ends of the energies the grid follows, over the slope's reference energy
+        self._slope_ends = (np.array([self._grid_floor_keV, self.energy_keV])
+                            / STOPPING_SLOPE_REFERENCE_KEV)
         self._layer_rows = np.zeros((len(layers), len(self.species)))
         for i, (layer, per) in enumerate(zip(layers, self._layer_species)):
             for sym, f in layer.fractions.items():
@@ -720,6 +726,10 @@ class ForwardModel:
         SliceGrid
             With ``layer`` set (the run-file layer of each slice, -1 for vacuum).
         """
+        return SliceGrid.from_edges(*self._sample_edges(areal_density_1e15, nuisance))
+
+    def _sample_edges(self, areal_density_1e15, nuisance):
+        """``(edges, layer)`` of :meth:`sample_grid`."""
         t = np.asarray(areal_density_1e15, dtype=float)
         if t.shape != self._t0.shape:
             raise InputError(f"give {self._t0.size} areal densities, one per finite layer; got "
@@ -730,8 +740,8 @@ class ForwardModel:
         tops = np.concatenate(([0.0], np.cumsum(t)))
         total = float(tops[-1])
         shift = tops - self._tops0
-        film = self._edge_film >= 0
-        k = np.where(film, self._edge_film, 0)
+        film = self._edge_in_film
+        k = self._edge_film_or_0
         # written as changes of the nominal edges, so that t = t0 gives them exactly
         edges = self.grid.edges_1e15 + shift[-1]
         if t.size:
@@ -755,11 +765,11 @@ class ForwardModel:
                 extra = int(math.ceil((need - edges[-1]) / w))
                 edges = np.concatenate((edges, edges[-1] + w * np.arange(1, extra + 1)))
                 layer = np.concatenate((layer, np.full(extra, len(self.run.layers) - 1)))
-        return SliceGrid.from_edges(edges, layer)
+        return edges, layer
 
     def sample_edges(self, areal_density_1e15, nuisance=None) -> np.ndarray:
         """Slice edges of :meth:`sample_grid` (1e15 atoms/cm2, from 0 at the surface)."""
-        return self.sample_grid(areal_density_1e15, nuisance).edges_1e15
+        return np.asarray(self._sample_edges(areal_density_1e15, nuisance)[0], dtype=float)
 
     def _lowest_stopping_factor(self, nu) -> float:
         """Smallest factor, relative to the run file, by which ``nu`` scales any stopping.
@@ -769,7 +779,7 @@ class ForwardModel:
         """
         ratio = nu.stopping_scale / self._default_nuisance.stopping_scale
         slope = nu.stopping_slope if nu.stopping_slope.size else self._zero_slope
-        ends = np.array([self._grid_floor_keV, self.energy_keV]) / STOPPING_SLOPE_REFERENCE_KEV
+        ends = self._slope_ends
         factor = ratio[:, None] * ends[None, :] ** slope[:, None]
         return float(factor.min()) if factor.size else 1.0
 
