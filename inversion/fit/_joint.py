@@ -29,7 +29,8 @@ import numpy as np
 
 from forward import InputError
 
-from ._objective import Objective, _PriorSum
+from ._objective import Objective
+from ._priors import _PriorSum
 from ._roles import Role
 
 __all__ = ["JointObjective", "measurement_fit", "PER_MEASUREMENT_ROLES",

@@ -10,6 +10,7 @@ table, never the forward model, which each process builds once (:class:`ModelBui
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 
 import numpy as np
@@ -20,6 +21,7 @@ from forward import InputError
 
 from ._stack import point_composition, refinement_points, stack_table
 from . import _derived
+from ._priors import _PriorSum
 from ._profiles import NodeProfile, stick_breaking
 from ._roles import Role
 from ._spec import FitSpec
@@ -30,40 +32,21 @@ __all__ = ["Objective", "ModelBuilder", "TAIL_WIDTHS", "log_prior_of"]
 #: the slice grid reaches this many mixing widths below the deepest interface, so that the
 #: Gaussian tails of every layer lie inside it (they are below 1e-15 there)
 TAIL_WIDTHS = 8.0
+#: the nuisance fields that hold one value per element
+_PER_ELEMENT_FIELDS = tuple(role.field for role in Role if role.per_element)
+
+
+@functools.lru_cache(maxsize=None)
+def _init_fields(kind) -> tuple:
+    """The fields of a nuisance dataclass its constructor takes (what dataclasses.replace
+    passes on)."""
+    return tuple(f.name for f in dataclasses.fields(kind) if f.init)
 
 
 def log_prior_of(parameters, theta) -> float:
     """Sum of the log prior densities of ``parameters`` at ``theta`` (-inf outside any
     support); one copy for every objective."""
     return _PriorSum(parameters)(theta)
-
-
-class _PriorSum:
-    """:func:`log_prior_of` with each prior's closed form looked up once (objectives keep one
-    and call it for every draw): the same densities added in the same order."""
-
-    def __init__(self, parameters):
-        self.parameters = parameters
-        self.terms = tuple(p.prior.closed_form() for p in parameters)
-
-    def __call__(self, theta) -> float:
-        total = 0.0
-        for value, (logpdf, constants) in zip(np.asarray(theta, dtype=float).tolist(),
-                                              self.terms):
-            lp = logpdf(value, constants)
-            if lp == -math.inf or lp != lp:
-                return -np.inf
-            total += lp
-        return total
-
-    @classmethod
-    def of(cls, owner) -> "_PriorSum":
-        """The one of ``owner.spec.parameters``, kept in ``owner`` (built again when the
-        parameter list is another)."""
-        cached = owner.__dict__.get("_prior_sum")
-        if cached is None or cached.parameters is not owner.spec.parameters:
-            cached = owner.__dict__["_prior_sum"] = cls(owner.spec.parameters)
-        return cached
 
 
 class ModelBuilder:
@@ -134,51 +117,6 @@ class _Draw:
     node_params: np.ndarray
     nuisance: object
     background: np.ndarray  # (2,) levels
-
-
-class _DrawPlan:
-    """What :meth:`Objective._draw` works out once per fit: each role's slots, in the order
-    of :attr:`RoleIndex.roles`, the physical limits of every parameter (the tests of
-    :meth:`Role.outside`, on plain floats) and the nuisance's fields."""
-
-    def __init__(self, index, default_nuisance):
-        self.index = index
-        self.slots = tuple((role, index[role]) for role in index.roles)
-        strict, loose, interval = [], [], []
-        for role, (pos, _) in self.slots:
-            if role.upper is not None:
-                # outside unless lower < value < upper (a NaN is outside)
-                interval += [(int(i), role.lower, role.upper) for i in pos]
-            elif role.lower is not None:
-                # outside at or below (strict) or below the limit (a NaN passes)
-                (strict if role.strict else loose).extend((int(i), role.lower) for i in pos)
-        self.strict, self.loose, self.interval = tuple(strict), tuple(loose), tuple(interval)
-        self.per_element_fields = tuple(role.field for role in Role if role.per_element)
-        self.nuisance_fields = tuple(f.name for f in dataclasses.fields(default_nuisance)
-                                     if f.init)
-
-    def outside(self, values) -> bool:
-        """True if any of ``values`` (the parameter vector as a list of floats) lies outside
-        its role's physical limits."""
-        for i, lower in self.strict:
-            if values[i] <= lower:
-                return True
-        for i, lower in self.loose:
-            if values[i] < lower:
-                return True
-        for i, lower, upper in self.interval:
-            if not lower < values[i] < upper:
-                return True
-        return False
-
-    @classmethod
-    def of(cls, objective) -> "_DrawPlan":
-        """The objective's plan, kept in it (built again for another role index)."""
-        plan = objective.__dict__.get("_draw_plan")
-        index = objective.spec.index
-        if plan is None or plan.index is not index:
-            plan = objective.__dict__["_draw_plan"] = cls(index, objective.default_nuisance)
-        return plan
 
 
 class _Profiles:
@@ -304,8 +242,7 @@ class Objective:
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_model"] = None
-        for key in ("_profiles", "_whole", "_prior_sum", "_draw_plan", "_window_rows",
-                    "_no_background"):
+        for key in ("_profiles", "_whole", "_prior_sum", "_window_rows", "_no_background"):
             state.pop(key, None)
         return state
 
@@ -410,13 +347,13 @@ class Objective:
     def _draw(self, theta) -> _Draw | None:
         """Free parameters to profile parameters, nuisance and background levels; None
         outside the physical limits."""
-        plan = _DrawPlan.of(self)
+        index = self.spec.index
         theta = np.asarray(theta, dtype=float)
         if theta.ndim == 1:
-            if plan.outside(theta.tolist()):
+            if index.outside(theta.tolist()):
                 return None
         else:
-            for role, (pos, _) in plan.slots:
+            for role, (pos, _) in index.slots:
                 if role.outside(theta[pos]):
                     return None
         thickness = self.base_thickness.copy()
@@ -426,8 +363,8 @@ class Objective:
         background = np.zeros(2)
         default = self.default_nuisance
         fields = {name: np.array(getattr(default, name), dtype=float, copy=True)
-                  for name in plan.per_element_fields}
-        for role, (pos, target) in plan.slots:
+                  for name in _PER_ELEMENT_FIELDS}
+        for role, (pos, target) in index.slots:
             if role is Role.AREAL_DENSITY:
                 thickness[target] = theta[pos]
             elif role is Role.MIXING:
@@ -444,7 +381,7 @@ class Objective:
             else:
                 fields[role.field] = theta[pos[0]]
         # dataclasses.replace(default, **fields), without its per-call look-up of the fields
-        values = {name: getattr(default, name) for name in plan.nuisance_fields}
+        values = {name: getattr(default, name) for name in _init_fields(type(default))}
         values.update(fields)
         nuisance = type(default)(**values)
         return _Draw(thickness, mixing, compositions, node_params, nuisance, background)
