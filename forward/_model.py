@@ -431,6 +431,8 @@ class ForwardModel:
         with np.errstate(divide="ignore"):
             log_ratio = np.log(ratio)  # -inf where the ratio is 0 (never at table energies > 0)
         self._bohr, self._ls_ratio, self._ls_log, self._ls_dlog = bohr, ratio, log_ratio, dlog
+        self._ls_positive = ratio > 0
+        self._ls_all_positive = bool(self._ls_positive.all())
         self._corrected = (self.straggling_law_exponent, W, dW)
 
         screening = None if phys.screening == "none" else phys.screening
@@ -606,6 +608,9 @@ class ForwardModel:
         lay = np.append(g.layer, g.layer[-1])
         film = (lay >= 0) & (lay < n_fin)
         self._edge_film = np.where(film, lay, -1)
+        # what sample_grid indexes with on every call
+        self._edge_in_film = film
+        self._edge_film_or_0 = np.where(film, lay, 0)
         # depth of each film edge below the top of its layer
         within = np.zeros(lay.size)
         for k in range(n_fin):
@@ -626,6 +631,9 @@ class ForwardModel:
                 comp = self._element_fractions(layers[-1])
                 s_sub = comp @ self._S[:, band]
                 self._rho = max(1.0, float(np.max(self._S[:, band] / s_sub)))
+        #: the two ends of the energies the grid follows, over the slope's reference energy
+        self._slope_ends = (np.array([self._grid_floor_keV, self.energy_keV])
+                            / STOPPING_SLOPE_REFERENCE_KEV)
         self._layer_rows = np.zeros((len(layers), len(self.species)))
         for i, (layer, per) in enumerate(zip(layers, self._layer_species)):
             for sym, f in layer.fractions.items():
@@ -718,6 +726,10 @@ class ForwardModel:
         SliceGrid
             With ``layer`` set (the run-file layer of each slice, -1 for vacuum).
         """
+        return SliceGrid.from_edges(*self._sample_edges(areal_density_1e15, nuisance))
+
+    def _sample_edges(self, areal_density_1e15, nuisance):
+        """``(edges, layer)`` of :meth:`sample_grid`."""
         t = np.asarray(areal_density_1e15, dtype=float)
         if t.shape != self._t0.shape:
             raise InputError(f"give {self._t0.size} areal densities, one per finite layer; got "
@@ -728,8 +740,8 @@ class ForwardModel:
         tops = np.concatenate(([0.0], np.cumsum(t)))
         total = float(tops[-1])
         shift = tops - self._tops0
-        film = self._edge_film >= 0
-        k = np.where(film, self._edge_film, 0)
+        film = self._edge_in_film
+        k = self._edge_film_or_0
         # written as changes of the nominal edges, so that t = t0 gives them exactly
         edges = self.grid.edges_1e15 + shift[-1]
         if t.size:
@@ -753,11 +765,11 @@ class ForwardModel:
                 extra = int(math.ceil((need - edges[-1]) / w))
                 edges = np.concatenate((edges, edges[-1] + w * np.arange(1, extra + 1)))
                 layer = np.concatenate((layer, np.full(extra, len(self.run.layers) - 1)))
-        return SliceGrid.from_edges(edges, layer)
+        return edges, layer
 
     def sample_edges(self, areal_density_1e15, nuisance=None) -> np.ndarray:
         """Slice edges of :meth:`sample_grid` (1e15 atoms/cm2, from 0 at the surface)."""
-        return self.sample_grid(areal_density_1e15, nuisance).edges_1e15
+        return np.asarray(self._sample_edges(areal_density_1e15, nuisance)[0], dtype=float)
 
     def _lowest_stopping_factor(self, nu) -> float:
         """Smallest factor, relative to the run file, by which ``nu`` scales any stopping.
@@ -767,7 +779,7 @@ class ForwardModel:
         """
         ratio = nu.stopping_scale / self._default_nuisance.stopping_scale
         slope = nu.stopping_slope if nu.stopping_slope.size else self._zero_slope
-        ends = np.array([self._grid_floor_keV, self.energy_keV]) / STOPPING_SLOPE_REFERENCE_KEV
+        ends = self._slope_ends
         factor = ratio[:, None] * ends[None, :] ** slope[:, None]
         return float(factor.min()) if factor.size else 1.0
 
@@ -844,7 +856,9 @@ class ForwardModel:
                 raise InputError(f"{name}={v!r}; it must be a finite number > 0"
                                  + (" (or 0 for fwhm_keV)" if name == "fwhm_keV" else ""),
                                  where=f"nuisance: {name}")
-        if not np.all(np.isfinite(nu.stopping_scale) & (nu.stopping_scale > 0)):
+        # min > 0 is False for NaN and -inf, max < inf catches +inf: two passes, no temporaries
+        scale = nu.stopping_scale
+        if scale.size and not (scale.min() > 0.0 and scale.max() < math.inf):
             raise InputError("stopping scales must be finite and > 0", where="nuisance: stopping_scale")
         w_scale = float(nu.straggling_scale)
         if not (math.isfinite(w_scale) and w_scale >= 0.0):
@@ -854,7 +868,7 @@ class ForwardModel:
         slope = nu.stopping_slope
         if slope.size == 0:
             slope = self._zero_slope
-        elif not np.all(np.isfinite(slope)):
+        elif not (slope.min() > -math.inf and slope.max() < math.inf):
             raise InputError("stopping slopes must be finite numbers", where="nuisance: stopping_slope")
         yield_factor = self._yield_base * nu.fluence_scale
         edges = self.channel_edges_keV(nu)[self.first_channel:]
@@ -890,8 +904,9 @@ class ForwardModel:
                              where="nuisance: straggling_correction")
         if not self.straggling:
             return self._W, self._dW
-        W = np.where(self._ls_ratio > 0, self._bohr * np.exp(a * self._ls_log),
-                     self._bohr if a == 0 else 0.0)
+        W = self._bohr * np.exp(a * self._ls_log)
+        if not self._ls_all_positive:
+            W = np.where(self._ls_positive, W, self._bohr if a == 0 else 0.0)
         dW = a * W * self._ls_dlog
         self._corrected = (a, W, dW)
         return W, dW

@@ -164,6 +164,31 @@ def test_roles_carry_positions_and_targets(toy):
     assert obj.unpack(negative_offset) is not None
 
 
+def test_role_index_limits_are_each_roles_limits(toy):
+    # RoleIndex.outside tests the whole parameter vector at once, on plain floats; each
+    # role's own Role.outside is the rule it must follow, at, just beyond and just inside every
+    # limit, and for NaN and infinities
+    fit = {"free": {"film.areal_density": {"uniform": [100, 600]},
+                    "film.mixing": {"halfnormal": 30}, "film.composition": True},
+           "fixed": ["gain_keV"], "background": "linear"}
+    index = toy.objective(fit).spec.index
+    theta = np.array([320.0, 12.0, 0.6, 1.0, 40.0, 20.0, 1.02, 0.97, 1.1, 0.01, -0.02, 0.4,
+                      0.5, 1.5])
+    special = [np.nan, np.inf, -np.inf, 0.0, -0.0, 1e-300, -1e-300]
+    checked = 0
+    for role, (positions, _) in index.slots:
+        limits = [v for v in (role.lower, role.upper) if v is not None]
+        values = special + [np.nextafter(v, d) for v in limits for d in (-np.inf, np.inf)]
+        for i in positions:
+            for value in values + limits:
+                x = theta.copy()
+                x[i] = value
+                expected = any(r.outside(x[p]) for r, (p, _) in index.slots)
+                assert index.outside(x.tolist()) == expected, (role, value)
+                checked += expected
+    assert checked > 20  # the limits were reached, not only passed
+
+
 def test_one_prediction_method_for_every_channel_range(toy):
     fit = dict(FIT, background="flat", windows=[[50, 80], [100, 130]])
     obj = toy.objective(fit)

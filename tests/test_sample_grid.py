@@ -125,6 +125,21 @@ def test_sample_grid_scales_each_layer_and_shifts_the_substrate():
         assert counts[model.species.index("Al")].max() < 1e-9
 
 
+def test_sample_edges_are_the_sample_grids_edges():
+    # sample_edges skips building the grid (it runs for every draw of a layer fit): the same
+    # edges, bit for bit, thinner and thicker films, with and without the substrate extended
+    # for a lower stopping
+    model = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
+    low = model.default_nuisance()
+    low.stopping_scale = low.stopping_scale * 0.7
+    for t in ([250.0, 400.0], [10.0, 35.5], [600.0, 900.0], [0.0, 0.0]):
+        for nu in (None, low):
+            grid = model.sample_grid(t, nu)
+            edges = model.sample_edges(t, nu)
+            assert edges.dtype == grid.edges_1e15.dtype
+            assert edges.tobytes() == grid.edges_1e15.tobytes()
+
+
 def test_edges_move_continuously_with_the_areal_densities():
     model = forward.ForwardModel(make_run(FILM_ON_SUBSTRATE))
     a = model.sample_edges([250.0, 400.0])

@@ -29,7 +29,8 @@ import numpy as np
 
 from forward import InputError
 
-from ._objective import Objective, log_prior_of
+from ._objective import Objective
+from ._priors import _PriorSum
 from ._roles import Role
 
 __all__ = ["JointObjective", "measurement_fit", "PER_MEASUREMENT_ROLES",
@@ -287,7 +288,7 @@ class JointObjective:
 
     def log_prior(self, theta) -> float:
         """Sum of the joint parameters' log prior densities (each parameter once)."""
-        return log_prior_of(self.spec.parameters, theta)
+        return _PriorSum.of(self)(theta)
 
     def log_likelihood(self, theta) -> float:
         """Sum of each spectrum's Poisson log-likelihood over its own window."""

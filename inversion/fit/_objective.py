@@ -10,6 +10,7 @@ table, never the forward model, which each process builds once (:class:`ModelBui
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 
 import numpy as np
@@ -20,6 +21,7 @@ from forward import InputError
 
 from ._stack import point_composition, refinement_points, stack_table
 from . import _derived
+from ._priors import _PriorSum
 from ._profiles import NodeProfile, stick_breaking
 from ._roles import Role
 from ._spec import FitSpec
@@ -30,18 +32,21 @@ __all__ = ["Objective", "ModelBuilder", "TAIL_WIDTHS", "log_prior_of"]
 #: the slice grid reaches this many mixing widths below the deepest interface, so that the
 #: Gaussian tails of every layer lie inside it (they are below 1e-15 there)
 TAIL_WIDTHS = 8.0
+#: the nuisance fields that hold one value per element
+_PER_ELEMENT_FIELDS = tuple(role.field for role in Role if role.per_element)
+
+
+@functools.lru_cache(maxsize=None)
+def _init_fields(kind) -> tuple:
+    """The fields of a nuisance dataclass its constructor takes (what dataclasses.replace
+    passes on)."""
+    return tuple(f.name for f in dataclasses.fields(kind) if f.init)
 
 
 def log_prior_of(parameters, theta) -> float:
     """Sum of the log prior densities of ``parameters`` at ``theta`` (-inf outside any
     support); one copy for every objective."""
-    total = 0.0
-    for value, p in zip(theta, parameters):
-        lp = p.prior.logpdf(value)
-        if lp == -math.inf or lp != lp:
-            return -np.inf
-        total += float(lp)
-    return total
+    return _PriorSum(parameters)(theta)
 
 
 class ModelBuilder:
@@ -142,8 +147,11 @@ class _Profiles:
         self._nodes = None
 
     def nodes(self, model) -> NodeProfile:
-        if self._nodes is None or self._nodes.edges_1e15.size != model.grid.edges_1e15.size \
-                or not np.array_equal(self._nodes.edges_1e15, model.grid.edges_1e15):
+        edges = model.grid.edges_1e15
+        if self._nodes is not None and self._nodes.edges_1e15 is edges:
+            return self._nodes  # built on this very array (the usual case: no comparison)
+        if self._nodes is None or self._nodes.edges_1e15.size != edges.size \
+                or not np.array_equal(self._nodes.edges_1e15, edges):
             n = self.node_settings
             self._nodes = NodeProfile(model.grid.edges_1e15, self.n_species, n["columns"],
                                       n["node_depth_1e15"], n["below"],
@@ -234,13 +242,14 @@ class Objective:
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_model"] = None
-        for key in ("_profiles", "_whole"):
+        for key in ("_profiles", "_whole", "_prior_sum", "_window_rows", "_no_background"):
             state.pop(key, None)
         return state
 
     def __setstate__(self, state):
         self.__dict__.update(state)
         self._profiles = _Profiles(self.spec, self.n_interfaces, self.substrate)
+        self._window_arrays()
 
     @property
     def model(self):
@@ -278,6 +287,17 @@ class Objective:
         self._log_k_factorial = float(np.sum(gammaln(k + 1.0)))
         lo, hi = self.channels[0], self.channels[-1]
         self._bg_ramp = (self.channels - lo) / max(hi - lo, 1)
+        self._window_arrays()
+
+    def _window_arrays(self):
+        """What :meth:`predict` uses on every call: the window channels of a full spectrum (one
+        slice when they are contiguous, a view rather than a gathered copy; else their
+        indices) and the zero background."""
+        lo, hi = int(self.channels[0]), int(self.channels[-1])
+        contiguous = self.channels.size == hi - lo + 1
+        self._window_rows = slice(lo, hi + 1) if contiguous else self.channels
+        self._no_background = np.zeros(self.channels.size)
+        self._no_background.flags.writeable = False
 
     def _window(self):
         spec = self.spec
@@ -329,19 +349,22 @@ class Objective:
         outside the physical limits."""
         index = self.spec.index
         theta = np.asarray(theta, dtype=float)
-        for role in index.roles:
-            if role.outside(theta[index[role][0]]):
+        if theta.ndim == 1:
+            if index.outside(theta.tolist()):
                 return None
+        else:
+            for role, (pos, _) in index.slots:
+                if role.outside(theta[pos]):
+                    return None
         thickness = self.base_thickness.copy()
         mixing = np.zeros(self.n_interfaces)
         compositions = self.base_compositions
         node_params = np.empty(0)
         background = np.zeros(2)
-        fields = {role.field: np.array(getattr(self.default_nuisance, role.field), dtype=float,
-                                       copy=True)
-                  for role in Role if role.per_element}
-        for role in index.roles:
-            pos, target = index[role]
+        default = self.default_nuisance
+        fields = {name: np.array(getattr(default, name), dtype=float, copy=True)
+                  for name in _PER_ELEMENT_FIELDS}
+        for role, (pos, target) in index.slots:
             if role is Role.AREAL_DENSITY:
                 thickness[target] = theta[pos]
             elif role is Role.MIXING:
@@ -357,7 +380,10 @@ class Objective:
                 fields[role.field][target] = theta[pos]
             else:
                 fields[role.field] = theta[pos[0]]
-        nuisance = dataclasses.replace(self.default_nuisance, **fields)
+        # dataclasses.replace(default, **fields), without its per-call look-up of the fields
+        values = {name: getattr(default, name) for name in _init_fields(type(default))}
+        values.update(fields)
+        nuisance = type(default)(**values)
         return _Draw(thickness, mixing, compositions, node_params, nuisance, background)
 
     def _shared(self, theta, positions, targets):
@@ -375,7 +401,7 @@ class Objective:
             return np.full(self.channels.size, levels[0])
         if kind == "linear":
             return levels[0] + (levels[1] - levels[0]) * self._bg_ramp
-        return np.zeros(self.channels.size)
+        return self._no_background
 
     def unpack(self, theta):
         """What one parameter vector sets: ``thickness``, ``mixing``, ``compositions``,
@@ -460,7 +486,7 @@ class Objective:
         if channels is None:
             # the kernel's channel integrals are differences of large numbers: clip the
             # round-off (|mu| ~ 1e-12 counts) below zero, which no Poisson mean can be
-            return np.maximum(mu[rows], 0.0) + self._window_background(draw)
+            return np.maximum(mu[self._window_rows], 0.0) + self._window_background(draw)
         mu = np.maximum(mu.astype(float), 0.0)
         mu[self.mask] += self._window_background(draw)
         return mu[rows]
@@ -478,7 +504,7 @@ class Objective:
     # ----- the three log densities -----
     def log_prior(self, theta) -> float:
         """Sum of the parameters' log prior densities (-inf outside any support)."""
-        return log_prior_of(self.spec.parameters, theta)
+        return _PriorSum.of(self)(theta)
 
     def log_likelihood(self, theta) -> float:
         """Poisson log-likelihood of the counts in the window (zeros included).
@@ -488,7 +514,8 @@ class Objective:
         if not self.use_likelihood:
             return 0.0
         mu = self.predict(theta)
-        if mu is None or not np.all(np.isfinite(mu)) or np.any(mu < 0):
+        # min >= 0 is False for NaN and anything below zero, max < inf catches +inf
+        if mu is None or not (mu.min() >= 0.0 and mu.max() < math.inf):
             return -np.inf
         value = float(np.sum(xlogy(self._k, mu) - mu)) - self._log_k_factorial
         return value if math.isfinite(value) else -np.inf
@@ -496,7 +523,7 @@ class Objective:
     def log_posterior(self, theta) -> float:
         """log_prior + log_likelihood; -inf before the model runs when outside the prior."""
         lp = self.log_prior(theta)
-        if not np.isfinite(lp):
+        if not math.isfinite(lp):
             return -np.inf
         return lp + self.log_likelihood(theta)
 

@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
 from scipy import stats
 
 from forward import InputError
@@ -63,6 +64,11 @@ class Prior:
         """Log density at one point, in closed form (the same values as ``dist.logpdf``,
         checked in tests, at a fraction of the cost of scipy's generic machinery)."""
         return _LOGPDF[self.kind](float(x), self._consts)
+
+    def closed_form(self):
+        """``(function, constants)`` with ``function(x, constants) == logpdf(x)`` for a float
+        ``x``: what :meth:`logpdf` calls, for loops that evaluate it many times."""
+        return _LOGPDF[self.kind], self._consts
 
     @property
     def _consts(self):
@@ -125,6 +131,35 @@ def _beta(x, c):
 
 _LOGPDF = {"uniform": _uniform, "normal": _normal, "lognormal": _lognormal,
            "halfnormal": _halfnormal, "beta": _beta}
+
+
+class _PriorSum:
+    """The sum of the log prior densities of ``parameters`` (each with a ``prior``), each
+    prior's closed form looked up once (objectives keep one and call it for every draw); -inf
+    outside any support, the densities added in parameter order."""
+
+    def __init__(self, parameters):
+        self.parameters = parameters
+        self.terms = tuple(p.prior.closed_form() for p in parameters)
+
+    def __call__(self, theta) -> float:
+        total = 0.0
+        for value, (logpdf, constants) in zip(np.asarray(theta, dtype=float).tolist(),
+                                              self.terms):
+            lp = logpdf(value, constants)
+            if lp == -math.inf or lp != lp:
+                return -math.inf
+            total += lp
+        return total
+
+    @classmethod
+    def of(cls, owner) -> "_PriorSum":
+        """The one of ``owner.spec.parameters``, kept in ``owner`` (built again when the
+        parameter list is another)."""
+        cached = owner.__dict__.get("_prior_sum")
+        if cached is None or cached.parameters is not owner.spec.parameters:
+            cached = owner.__dict__["_prior_sum"] = cls(owner.spec.parameters)
+        return cached
 
 
 def make_prior(kind: str, *args: float, where: str | None = None) -> Prior:

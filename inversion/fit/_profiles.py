@@ -201,6 +201,15 @@ class NodeProfile:
             comps = np.asarray(layer_compositions, dtype=float)
             self._tops, self._comps = tops, comps
             self._base = self._layer_average(a, b)
+        # what fractions() uses on every call, worked out once (the same operations on the
+        # same numbers as when it computed them itself)
+        k, dz, extra = self._edge_at
+        self._dz, self._dz2, self._extra = dz[:, None], (dz * dz)[:, None], extra[:, None]
+        self._half_gaps = 0.5 * self._gaps[:, None]
+        self._span = np.where(self.widths_1e15 > 0, self.widths_1e15, 1.0)[:, None]
+        self._every_column = bool(np.array_equal(self.columns, np.arange(self.n_species)))
+        self._outside = (None if self._base is None
+                         else (1.0 - self._coverage)[:, None] * self._base)
 
     # ----- the run file's layers outside the range (mixed model) -----
     def _layer_bounds(self):
@@ -269,19 +278,31 @@ class NodeProfile:
         """Atom fractions on the grid, shape (n_slices, n_species): each slice's average of
         the profile (exact: the integral of a piecewise-linear function)."""
         f = self.node_fractions(params)
-        k, dz, extra = self._edge_at
-        # the profile's integral from the top of the range down to each edge
-        cum = np.concatenate([np.zeros((1, f.shape[1])),
-                              np.cumsum(0.5 * self._gaps[:, None] * (f[1:] + f[:-1]), axis=0)])
+        k = self._edge_at[0]
+        # per interval between nodes: the profile's integral from the top of the range down
+        # to its first node, the fractions there and half the slope, taken at once for every
+        # edge (k: the interval of each edge)
+        per = np.empty((3, self.n_nodes - 1, f.shape[1]))
+        per[0, 0] = 0.0
+        np.cumsum(self._half_gaps[:-1] * (f[1:-1] + f[:-2]), axis=0, out=per[0, 1:])
+        per[1] = f[:-1]
         slope = (f[1:] - f[:-1]) / self._gaps[:, None]
-        integral = cum[k] + f[k] * dz[:, None] + 0.5 * slope[k] * (dz * dz)[:, None]
+        np.multiply(0.5, slope, out=per[2])
+        at = per.take(k, axis=1)
+        # the integral down to each edge
+        integral = at[0] + at[1] * self._dz + at[2] * self._dz2
         if self.below == "hold":
-            integral = integral + f[-1] * extra[:, None]
-        span = np.where(self.widths_1e15 > 0, self.widths_1e15, 1.0)[:, None]
-        out = np.zeros((self.widths_1e15.size, self.n_species))
-        out[:, self.columns] = np.maximum(np.diff(integral, axis=0) / span, 0.0)
+            integral += f[-1] * self._extra
+        inside = integral[1:] - integral[:-1]
+        inside /= self._span
+        np.maximum(inside, 0.0, out=inside)
+        if self._every_column:
+            out = inside
+        else:
+            out = np.zeros((self.widths_1e15.size, self.n_species))
+            out[:, self.columns] = inside
         if self.below == "layers":
-            out += (1.0 - self._coverage)[:, None] * self._base
+            out += self._outside
         return out
 
 

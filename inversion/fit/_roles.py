@@ -177,6 +177,35 @@ class RoleIndex:
                        for role, (a, b) in pos.items()}
         #: the roles present, in declaration order (limits are checked in this order)
         self.roles = tuple(r for r in Role if r in self._slots)
+        #: ``(role, (positions, targets))`` of the roles present, in that order
+        self.slots = tuple((role, self._slots[role]) for role in self.roles)
+        # the limits of every parameter, for outside(): (position, lower) at or below which
+        # (strict) or below which (loose) a value is outside, and (position, lower, upper)
+        # of an interval
+        strict, loose, interval = [], [], []
+        for role, (positions, _) in self.slots:
+            if role.upper is not None:
+                interval += [(int(i), role.lower, role.upper) for i in positions]
+            elif role.lower is not None:
+                (strict if role.strict else loose).extend((int(i), role.lower)
+                                                          for i in positions)
+        self._strict, self._loose, self._interval = tuple(strict), tuple(loose), tuple(interval)
+
+    def outside(self, values) -> bool:
+        """True if any parameter lies outside its role's physical limits: the tests of
+        :meth:`Role.outside` on the whole parameter vector ``values``, given as a sequence of
+        floats (one pass of plain comparisons, no arrays)."""
+        for i, lower in self._strict:
+            if values[i] <= lower:
+                return True
+        for i, lower in self._loose:
+            if values[i] < lower:
+                return True
+        for i, lower, upper in self._interval:
+            # a NaN is outside an interval, and passes a one-sided limit (as in Role.outside)
+            if not lower < values[i] < upper:
+                return True
+        return False
 
     def __contains__(self, role: Role) -> bool:
         return role in self._slots

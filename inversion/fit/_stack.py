@@ -101,19 +101,21 @@ def half_boxes(areal_density_1e15, mixing_1e15, substrate: bool):
     n = t.size
     z = np.concatenate([[0.0], np.cumsum(t)])
     mid = z[:-1] + 0.5 * t
+    # upper halves first, then lower halves, then the substrate's box (filled in place: this
+    # runs for every draw)
+    size = 2 * n + (1 if substrate else 0)
+    top, bottom, width = np.empty(size), np.empty(size), np.empty(size)
+    layer = np.empty(size, dtype=int)
+    top[:n], top[n:2 * n] = z[:-1], mid
+    bottom[:n], bottom[n:2 * n] = mid, z[1:]
     # the top layer's upper half takes its lower interface's width: the blur reflects at the
     # surface, so the surface stays sharp either way, and a lone layer then has D = 1
-    upper_w = np.concatenate([w[:1], w[:-1]]) if n else np.zeros(0)
-    top = np.concatenate([z[:-1], mid])
-    bottom = np.concatenate([mid, z[1:]])
-    width = np.concatenate([upper_w, w])
-    layer = np.concatenate([np.arange(n), np.arange(n)])
+    width[:n][:1], width[1:n], width[n:2 * n] = w[:1], w[:-1], w
+    layer[:n] = layer[n:2 * n] = np.arange(n)
     if substrate:
-        top = np.append(top, z[-1])
-        bottom = np.append(bottom, np.inf)
-        width = np.append(width, w[-1] if n else 0.0)
-        layer = np.append(layer, n)
-    return top, bottom, width, layer.astype(int)
+        top[-1], bottom[-1], layer[-1] = z[-1], np.inf, n
+        width[-1] = w[-1] if n else 0.0
+    return top, bottom, width, layer
 
 
 def _antiderivative(edges, top, bottom, width):
