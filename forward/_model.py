@@ -892,10 +892,14 @@ class ForwardModel:
         :attr:`Nuisance.straggling_correction`; None: the run's law).
 
         ``W = Bohr * ratio**a`` and ``dW/dE = a * W * d ln(ratio)/dE``, ``ratio`` the
-        Lindhard-Scharff ratio of each element; the last exponent asked for is cached.
+        Lindhard-Scharff ratio of each element; the last exponent asked for is cached.  None
+        and the run's own law give the tables the law builds directly, whatever was asked
+        before.
         """
+        if correction is None or correction == self.straggling_law_exponent:
+            return self._W, self._dW
         a, W, dW = self._corrected
-        if correction is None or correction == a:
+        if correction == a:
             return W, dW
         a = float(correction)
         if not math.isfinite(a):

@@ -211,6 +211,15 @@ def test_straggling_correction_moves_between_the_laws():
     nu.straggling_correction = float("nan")
     with pytest.raises(forward.InputError, match="straggling_correction"):
         ls.expected_counts(fr, nu)
+    # None (the run's law) and the law's exponent give the law's own tables whatever was
+    # asked before (the cache of the last correction once answered None with it)
+    ls.straggling_tables(0.3)
+    for asked in (None, 1.0):
+        w, dw = ls.straggling_tables(asked)
+        assert w is ls._W and dw is ls._dW
+    nu.straggling_correction = None
+    ls.straggling_tables(0.3)
+    np.testing.assert_array_equal(ls.expected_counts(fr, nu), ls.expected_counts(fr))
 
 
 def test_straggling_correction_is_a_default_nuisance_centred_on_the_law():
