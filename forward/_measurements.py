@@ -112,21 +112,21 @@ class MeasurementSet:
         """The first measurement's run (the sample is the same in every one)."""
         return self.measurements[0].run
 
-    def groups(self) -> dict:
-        """``{charge group: [measurement names]}``."""
+    def _members_by(self, key: str) -> dict:
+        """``{group: [measurement names]}`` of the measurements' attribute ``key``."""
         out: dict = {}
         for m in self.measurements:
-            if m.charge_group is not None:
-                out.setdefault(m.charge_group, []).append(m.name)
+            if getattr(m, key) is not None:
+                out.setdefault(getattr(m, key), []).append(m.name)
         return out
+
+    def groups(self) -> dict:
+        """``{charge group: [measurement names]}``."""
+        return self._members_by("charge_group")
 
     def detector_groups(self) -> dict:
         """``{detector group: [measurement names]}``."""
-        out: dict = {}
-        for m in self.measurements:
-            if m.detector_group is not None:
-                out.setdefault(m.detector_group, []).append(m.name)
-        return out
+        return self._members_by("detector_group")
 
     def with_overrides(self, changes=None, *, spectra=None, source: str | None = None
                        ) -> "MeasurementSet":
