@@ -66,7 +66,8 @@ from inversion import (NotConvergedWarning, Role, cramer_rao_sd, fisher_matrix, 
                        invert, nominal_theta, prepare)
 
 __all__ = ["run_text", "scenario_objective", "simulate_counts", "run_replica",
-           "coverage_summary", "expected_coverage_given_draws", "main", "TRUTH", "QUANTITIES"]
+           "coverage_summary", "expected_coverage_given_draws", "draw_statistics", "main",
+           "TRUTH", "QUANTITIES"]
 
 #: the invented truth of the film (1e15 atoms/cm2)
 TRUTH = {"film.areal_density": 250.0, "film.mixing": 40.0}
@@ -257,6 +258,32 @@ def expected_coverage_given_draws(records: list) -> dict:
     return out
 
 
+def draw_statistics(records: list) -> dict:
+    """What the truths drawn and the errors made look like, per quantity.
+
+    ``draws_in_prior68`` / ``draws_in_prior95``: the share of the nuisance truths drawn that
+    fall inside their prior's central 68 % (95 %) interval.  Where the spectrum hardly
+    constrains a nuisance (posterior = prior) its coverage can be nothing else, so this says how
+    lucky the draws were, without any inversion.  ``z_mean`` / ``z_sd``: mean and sd over the
+    replicas of ``(posterior median - truth) / posterior sd``, near 0 and 1 for a calibrated
+    posterior (a mean off 0 is a bias, an sd above 1 intervals too short).
+    """
+    _, obj = scenario_objective(run_text(CHARGE_UC))
+    out = {"draws_in_prior68": {}, "draws_in_prior95": {}, "z_mean": {}, "z_sd": {}}
+    for p in obj.spec.parameters:
+        truth = np.array([r["truth"][p.name] for r in records])
+        if p.role.is_nuisance:
+            for level, tail in ((68, 0.16), (95, 0.025)):
+                low, high = p.prior.dist.ppf([tail, 1.0 - tail])
+                out[f"draws_in_prior{level}"][p.name] = float(np.mean((truth >= low)
+                                                                      & (truth <= high)))
+        z = np.array([(r["summary"][p.name]["median"] - r["truth"][p.name])
+                      / r["summary"][p.name]["sd"] for r in records])
+        out["z_mean"][p.name] = float(np.mean(z))
+        out["z_sd"][p.name] = float(np.std(z))
+    return out
+
+
 def _load_state(path: Path) -> list:
     if not path.exists():
         return []
@@ -388,6 +415,7 @@ def main(argv=None) -> int:
                        if conv else {},
                        "given_draws": expected_coverage_given_draws(recs)
                        if nominal == "prior" else {},
+                       "draws": draw_statistics(recs),
                        "replica_wall_s_median": float(np.median([r["wall_s"] for r in recs])),
                        "steps_median": float(np.median([r["steps"] for r in recs])),
                        "counts_in_window_median": float(np.median(
