@@ -9,6 +9,7 @@ nothing of it.
 from __future__ import annotations
 
 import dataclasses
+import shutil
 
 import h5py
 import numpy as np
@@ -490,3 +491,27 @@ def test_a_joint_free_form_profile_needs_one_set_of_nodes(world, tmp_path):
     joint = prepare_joint(tmp_path / "nodes.toml")
     assert [n for n in joint.names if n.startswith("nodes.")] == \
         ["nodes.Ta.logratio0"] + [f"nodes.Ta.step{k}" for k in range(1, 6)]
+
+
+def test_a_joint_fit_with_a_free_width_moves_widths_and_straggling_as_a_block(world, tmp_path):
+    # the joint fit's differential moves also update the edge-spread block (benchmarks/
+    # RESULTS.md, "Joint fits"); a single spectrum's do not, nor a joint fit without widths
+    from inversion import Sampler
+
+    for name in TILTS:
+        shutil.copy(world / f"{name}.csv", tmp_path / f"{name}.csv")
+    held = [h for h in _HELD if h != "straggling"]
+    (tmp_path / "wide.toml").write_text(
+        _joint_text('"film.mixing" = { halfnormal = 20.0 }\n', held=held))
+    joint = prepare_joint(load_joint(tmp_path / "wide.toml"))
+    sampler = Sampler(joint, n_walkers=joint.spec.n_walkers)
+    assert [joint.names[i] for i in sampler.block] == ["film.mixing", "straggling_scale",
+                                                       "straggling_correction"]
+    single = inversion.prepare(forward.parse_run(_single_text("normal").replace(
+        "[fit.free]\n", '[fit.free]\n"film.mixing" = { halfnormal = 20.0 }\n'),
+        source="single.toml"), np.loadtxt(world / "normal.csv", delimiter=",",
+                                          skiprows=1)[:, 1])[1]
+    assert "film.mixing" in single.names
+    assert Sampler(single, n_walkers=single.spec.n_walkers).block == []
+    plain = prepare_joint(load_joint(world / "joint.toml"))
+    assert Sampler(plain, n_walkers=plain.spec.n_walkers).block == []

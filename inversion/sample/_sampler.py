@@ -19,22 +19,38 @@ from ._convergence import (WALKER_GROUPS, SamplerStatus, autocorr_summary, group
                            is_converged)
 from ._start import (START_MAXITER, START_POPSIZE, find_start, find_starts, laplace_covariance,
                      prior_bounds, starts_disagree, walker_ball, walker_groups)
-from ._moves import SubspaceDEMove
+from ._moves import BlockDEMove, SubspaceDEMove, edge_spread_block
 from ._polish import gradient_polish
 from ._workers import worker_log_posterior, worker_pool
 
-__all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt"]
+__all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt",
+           "DIFFERENTIAL_SHARES"]
 
 
-def make_moves(kind: str):
+#: shares of the differential moves: whole-vector differential evolution, the edge-spread
+#: block (when the fit has one) and the snooker update
+DIFFERENTIAL_SHARES = (0.7, 0.1, 0.2)
+
+
+def make_moves(kind: str, block=()):
     """emcee moves by name: ``"stretch"`` (affine-invariant stretch move, Goodman & Weare 2010,
     Comm. App. Math. Comp. Sci. 5, 65) or ``"differential"`` (differential evolution moves,
     ter Braak 2006, Stat. Comput. 16, 239, mixed 4:1 with the snooker update, ter Braak &
     Vrugt 2008, Stat. Comput. 18, 435) or ``"subspace"`` (differential evolution in random
-    subspaces, :class:`inversion.sample._moves.SubspaceDEMove`, with the same snooker share)."""
+    subspaces, :class:`inversion.sample._moves.SubspaceDEMove`, with the same snooker share).
+
+    ``block``: positions of the edge-spread parameters
+    (:func:`inversion.sample._moves.edge_spread_block`).  When given, ``"differential"`` spends
+    a share of its proposals (:data:`DIFFERENTIAL_SHARES`) on differential evolution in that
+    block alone (:class:`inversion.sample._moves.BlockDEMove`).
+    """
     if kind == "stretch":
         return emcee.moves.StretchMove()
     if kind == "differential":
+        if len(block):
+            whole, part, snooker = DIFFERENTIAL_SHARES
+            return [(emcee.moves.DEMove(), whole), (BlockDEMove(block), part),
+                    (emcee.moves.DESnookerMove(), snooker)]
         return [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
     if kind == "subspace":
         return [(SubspaceDEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
@@ -76,6 +92,11 @@ class Sampler:
         self.workers = int(workers)
         self.moves = moves
         self.bounds = prior_bounds(objective)
+        #: the edge-spread parameters the differential moves also update as a block (joint
+        #: fits only)
+        spec = getattr(objective, "spec", None)
+        self.block = edge_spread_block(getattr(spec, "parameters", ()),
+                                       measurements=len(getattr(objective, "parts", ())) or 1)
 
     # ----- start -----
     def find_start(self, pool=None):
@@ -171,7 +192,8 @@ class Sampler:
                 start = self.backend.get_last_sample()
             fn = worker_log_posterior if pool is not None else self.objective.log_posterior
             sampler = emcee.EnsembleSampler(self.n_walkers, self.ndim, fn, pool=pool,
-                                            backend=self.backend, moves=make_moves(self.moves))
+                                            backend=self.backend,
+                                            moves=make_moves(self.moves, self.block))
             if done > 0:
                 converged, status.tau, status.rhat = self._check(sampler, tau_multiple)
                 if converged and done % check_every == 0:
