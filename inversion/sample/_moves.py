@@ -36,6 +36,13 @@ __all__ = ["SubspaceDEMove", "BlockDEMove", "CROSSOVER_PROBABILITIES", "edge_spr
 CROSSOVER_PROBABILITIES = (1.0 / 3.0, 2.0 / 3.0, 1.0)
 
 
+def _two_others(random, nc: int, ns: int):
+    """For each of ``ns`` proposals, two different walkers of the ``nc`` complementary ones."""
+    first = random.randint(nc, size=ns)
+    second = (first + 1 + random.randint(nc - 1, size=ns)) % nc  # never the same walker
+    return first, second
+
+
 class SubspaceDEMove(RedBlueMove):
     """Differential evolution in a random subspace (see the module notes).
 
@@ -53,8 +60,7 @@ class SubspaceDEMove(RedBlueMove):
         c = np.concatenate(c, axis=0)
         ns, ndim = s.shape
         nc = c.shape[0]
-        first = random.randint(nc, size=ns)
-        second = (first + 1 + random.randint(nc - 1, size=ns)) % nc  # never the same walker
+        first, second = _two_others(random, nc, ns)
         diffs = c[second] - c[first]
         cr = np.asarray(CROSSOVER_PROBABILITIES)[random.randint(len(CROSSOVER_PROBABILITIES),
                                                                 size=ns)]
@@ -90,8 +96,7 @@ class BlockDEMove(RedBlueMove):
         c = np.concatenate(c, axis=0)
         ns = s.shape[0]
         nc = c.shape[0]
-        first = random.randint(nc, size=ns)
-        second = (first + 1 + random.randint(nc - 1, size=ns)) % nc  # never the same walker
+        first, second = _two_others(random, nc, ns)
         gamma = self.gamma0 * (1.0 + self.sigma * random.randn(ns, 1))
         q = np.array(s, dtype=np.float64, copy=True)
         q[:, self.block] += gamma * (c[second][:, self.block] - c[first][:, self.block])
