@@ -27,6 +27,11 @@ Usage::
     python benchmarks/inversion_speed.py --scenario nodes --moves stretch --json
     python benchmarks/inversion_speed.py --workers 2 --json
     python benchmarks/inversion_speed.py --scenario joint --separate-detectors --json
+    python benchmarks/inversion_speed.py --scenario joint --workers 2 --seeds 1-6 --json
+
+The joint scenario's ratio of wall times moves with the seed (each seed other Poisson spectra,
+other chains, and the chain lengths come in steps of 200): ``--seeds`` runs several and reports
+each one with the median and range of the ratio.
 
 Prints one JSON object (``--json``) with wall_s, converged, max_autocorr_steps, ess_per_s,
 n_free_parameters and more.  Results: benchmarks/RESULTS.md, section "Inversion".
@@ -236,31 +241,26 @@ def main(argv=None):
     ap.add_argument("--separate-detectors", action="store_true",
                     help="joint scenario: each spectrum its own gain, offset and resolution "
                          "(default: one detector group, one of each for both spectra)")
+    ap.add_argument("--seeds", default=None,
+                    help="joint scenario: several seeds, e.g. 1-6 or 1,3,5 (other Poisson "
+                         "spectra and chains each); reports each seed and the median ratio")
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args(argv)
+    if args.seeds and args.scenario != "joint":
+        ap.error("--seeds goes with --scenario joint")
+    if args.seeds:
+        try:
+            _seed_list(args.seeds)
+        except ValueError:
+            ap.error(f"--seeds {args.seeds!r}: give a range such as 1-6 or a list such as 1,3,5")
 
     settings = dict(max_steps=args.max_steps, moves=args.moves, walkers=args.walkers)
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         if args.scenario == "joint":
-            for name, text in (("normal", LAYERS), ("tilt45", LAYERS_TILTED)):
-                (tmp / f"{name}.toml").write_text(text.format(**settings))
-                counts = simulate(tmp / f"{name}.toml", "joint", args.seed)
-                np.savetxt(tmp / f"{name}.csv", np.column_stack([np.arange(counts.size),
-                                                                 counts]),
-                           fmt="%d", delimiter=",", header="channel,counts", comments="")
-            (tmp / "joint.toml").write_text(
-                joint_text(args.separate_detectors).format(**settings))
-            single = _timed(tmp / "normal.toml", tmp / "normal.csv", tmp / "single.h5", args)
-            joint = _timed(tmp / "joint.toml", None, tmp / "joint.h5", args)
-            out = {"scenario": "joint", "single": _figures(*single, args, "layers"),
-                   "joint": _figures(*joint, args, "joint"),
-                   "detectors": "separate" if args.separate_detectors else "one group"}
-            out["wall_ratio"] = round(joint[1] / single[1], 2)
-            out["ess_per_s_ratio"] = round(out["joint"]["ess_per_s"]
-                                           / out["single"]["ess_per_s"], 2)
-            out["load_average"] = [round(x, 2) for x in os.getloadavg()]
-            out["date"] = time.strftime("%Y-%m-%d %H:%M")
+            seeds = _seed_list(args.seeds) if args.seeds else [args.seed]
+            runs = [_joint(args, seed, tmp / f"seed{seed}") for seed in seeds]
+            out = runs[0] if len(runs) == 1 else _over_seeds(runs, seeds)
         else:
             run_path = tmp / "run.toml"
             run_path.write_text(TEXT[args.scenario].format(**settings))
@@ -272,6 +272,57 @@ def main(argv=None):
     else:
         for k, v in out.items():
             print(f"{k:>22}: {v}")
+
+
+def _seed_list(text: str) -> list:
+    """``"1-6"`` or ``"1,3,5"`` as a list of seeds (ValueError otherwise)."""
+    seeds = []
+    for part in text.split(","):
+        first, dash, last = part.strip().partition("-")
+        lo, hi = int(first), int(last if dash else first)
+        if hi < lo:
+            raise ValueError(text)
+        seeds.extend(range(lo, hi + 1))
+    if not seeds:
+        raise ValueError(text)
+    return seeds
+
+
+def _joint(args, seed, folder) -> dict:
+    """The joint scenario at one seed: the normal-incidence spectrum alone, then both
+    spectra jointly, timed one after the other."""
+    folder.mkdir()
+    settings = dict(max_steps=args.max_steps, moves=args.moves, walkers=args.walkers)
+    for name, text in (("normal", LAYERS), ("tilt45", LAYERS_TILTED)):
+        (folder / f"{name}.toml").write_text(text.format(**settings))
+        counts = simulate(folder / f"{name}.toml", "joint", seed)
+        np.savetxt(folder / f"{name}.csv", np.column_stack([np.arange(counts.size), counts]),
+                   fmt="%d", delimiter=",", header="channel,counts", comments="")
+    (folder / "joint.toml").write_text(joint_text(args.separate_detectors).format(**settings))
+    args = argparse.Namespace(**{**vars(args), "seed": seed})
+    single = _timed(folder / "normal.toml", folder / "normal.csv", folder / "single.h5", args)
+    joint = _timed(folder / "joint.toml", None, folder / "joint.h5", args)
+    out = {"scenario": "joint", "seed": seed, "single": _figures(*single, args, "layers"),
+           "joint": _figures(*joint, args, "joint"),
+           "detectors": "separate" if args.separate_detectors else "one group"}
+    out["wall_ratio"] = round(joint[1] / single[1], 2)
+    out["step_ratio"] = round(out["joint"]["steps"] / out["single"]["steps"], 3)
+    out["ess_per_s_ratio"] = round(out["joint"]["ess_per_s"] / out["single"]["ess_per_s"], 2)
+    out["load_average"] = [round(x, 2) for x in os.getloadavg()]
+    out["date"] = time.strftime("%Y-%m-%d %H:%M")
+    return out
+
+
+def _over_seeds(runs, seeds) -> dict:
+    """Several seeds of the joint scenario: each one's figures and the ratios' median and
+    range (the chain lengths, hence the ratio, change from seed to seed)."""
+    ratios = [r["wall_ratio"] for r in runs]
+    return {"scenario": "joint", "seeds": seeds, "runs": runs,
+            "wall_ratio_median": round(float(np.median(ratios)), 2),
+            "wall_ratio_range": [min(ratios), max(ratios)],
+            "step_ratio_median": round(float(np.median([r["step_ratio"] for r in runs])), 3),
+            "seeds_within_2x": sum(r <= 2.0 for r in ratios),
+            "date": time.strftime("%Y-%m-%d %H:%M")}
 
 
 def _timed(run_path, counts, output, args):
