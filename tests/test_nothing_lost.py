@@ -391,3 +391,44 @@ def test_sampler_writes_wait_for_a_reader_holding_the_lock(tmp_path):
     assert int(backend.iteration) == 1
     assert np.array_equal(backend.accepted, np.ones(4))
     assert backend.random_state[1].tolist() == np.random.RandomState(0).get_state()[1].tolist()
+
+
+def test_step_checks_and_acceptance_totals_across_writers(tmp_path):
+    """The backend's own step checks (emcee's, read in the one open of the write) refuse a
+    malformed step and write nothing; acceptance totals carry on alike whether the writer
+    remembers the last step or a new writer (a resumed run) reads it back.  Common practice:
+    emcee's ``accepted`` counts accepted proposals per walker since the chain began."""
+    import emcee
+
+    from inversion.results._backend import SafeHDFBackend
+
+    path = tmp_path / "steps.h5"
+    backend = SafeHDFBackend(str(path), name="mcmc")
+    backend.reset(4, 2)
+    backend.grow(4, None)
+    rng = np.random.RandomState(3)
+
+    def state(shape=(4, 2), n_logp=4, blobs=None):
+        return emcee.State(rng.rand(*shape), log_prob=rng.rand(n_logp), blobs=blobs,
+                           random_state=rng.get_state())
+
+    steps = [np.array([1, 0, 1, 1], dtype=bool), np.array([0, 0, 1, 1], dtype=bool),
+             np.array([1, 1, 1, 0], dtype=bool)]
+    backend.save_step(state(), steps[0])
+    backend.save_step(state(), steps[1])
+    for bad, accepted, message in (
+            (state(shape=(4, 3)), steps[0], "coordinate dimensions"),
+            (state(n_logp=3), steps[0], "log probability size"),
+            (state(), np.ones(3, dtype=bool), "acceptance size"),
+            (state(blobs=np.zeros(4)), steps[0], "blobs")):
+        with pytest.raises(ValueError, match=message):
+            backend.save_step(bad, accepted)
+        assert int(backend.iteration) == 2  # nothing of the refused step was written
+    resumed = SafeHDFBackend(str(path), name="mcmc")  # no memory of the steps before
+    resumed.save_step(state(), steps[2])
+    expected = np.sum(steps, axis=0)
+    assert np.array_equal(resumed.accepted, expected)
+    assert np.array_equal(SafeHDFBackend(str(path), name="mcmc").accepted, expected)
+    with h5py.File(path, "r") as f:
+        assert np.array_equal(f["mcmc/accepted"][()], expected)  # emcee's own copy
+        assert int(f["mcmc"].attrs["iteration"]) == 3

@@ -84,11 +84,13 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
             g.create_dataset("resume_log_prob", shape=(2, nwalkers), dtype=np.float64)
             tags = g.create_dataset("resume_coords_step", shape=(2,), dtype=np.float64)
             tags[:] = -1.0
-        g.attrs["resume_slots"] = ("random state, acceptances, positions and log-posteriors "
-                                   "after step n in slot n % 2, written and flushed before the "
-                                   "counter 'iteration'")
+        if "resume_slots" not in g.attrs:  # written once, not at every step
+            g.attrs["resume_slots"] = ("random state, acceptances, positions and "
+                                       "log-posteriors after step n in slot n % 2, written and "
+                                       "flushed before the counter 'iteration'")
 
     def reset(self, nwalkers, ndim):
+        self._accepted_after = None
         super().reset(nwalkers, ndim)
         with self.open("a") as f:
             g = f[self.name]
@@ -136,13 +138,40 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
                 return g["accepted"][...]
             return np.array(slot[2])
 
+    @staticmethod
+    def _check_step(g, state, accepted) -> None:
+        """emcee's checks of a step against the stored shape and blobs, read from the group
+        already open (emcee's own ``_check`` opens the file four more times per step, about
+        half the cost of writing one)."""
+        nwalkers, ndim = int(g.attrs["nwalkers"]), int(g.attrs["ndim"])
+        has_blobs = bool(g.attrs["has_blobs"])
+        blobs = state.blobs
+        if (has_blobs and blobs is None) or (
+                blobs is not None and not has_blobs and int(g.attrs["iteration"]) > 0):
+            raise ValueError("inconsistent use of blobs")
+        if state.coords.shape != (nwalkers, ndim):
+            raise ValueError(f"invalid coordinate dimensions; expected {(nwalkers, ndim)}")
+        if state.log_prob.shape != (nwalkers,):
+            raise ValueError(f"invalid log probability size; expected {nwalkers}")
+        if blobs is not None and not has_blobs:
+            raise ValueError("unexpected blobs")
+        if blobs is not None and len(blobs) != nwalkers:
+            raise ValueError(f"invalid blobs size; expected {nwalkers}")
+        if accepted.shape != (nwalkers,):
+            raise ValueError(f"invalid acceptance size; expected {nwalkers}")
+
     def save_step(self, state, accepted):
-        self._check(state, accepted)
         with self.open("a") as f:
             g = f[self.name]
+            self._check_step(g, state, accepted)
             n = int(g.attrs["iteration"])
-            previous = self._slot(g)
-            total = (np.array(previous[2]) if previous is not None else g["accepted"][...])
+            cached = getattr(self, "_accepted_after", None)
+            if cached is not None and cached[0] == n:  # this object wrote step n itself
+                total = cached[1]
+            else:
+                previous = self._slot(g)
+                total = (np.array(previous[2]) if previous is not None
+                         else g["accepted"][...])
             total = total + accepted
             self._create_slots(g, int(g.attrs["nwalkers"]), int(g.attrs["ndim"]))
             g["chain"][n, :, :] = state.coords
@@ -160,6 +189,7 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
             g["resume_coords_step"][s] = n + 1
             f.flush()
             g.attrs.modify("iteration", n + 1)
+        self._accepted_after = (n + 1, total)
 
     def get_value(self, name, flat=False, thin=1, discard=0):
         """As emcee's, in float64 whatever the stored type."""
