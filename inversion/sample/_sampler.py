@@ -200,8 +200,10 @@ class Sampler:
                     status.converged = True
             remaining = max_steps - done
             if remaining > 0 and not status.converged:
-                for _ in sampler.sample(start, iterations=remaining, progress=False):
-                    step = sampler.iteration
+                # each state yielded is one step stored (counted here: reading the counter
+                # back from the file would open it once more per step)
+                for step, _ in enumerate(sampler.sample(start, iterations=remaining,
+                                                        progress=False), start=done + 1):
                     if progress is not None:
                         progress(step)
                     if step % check_every == 0 or step == max_steps:
