@@ -52,9 +52,9 @@ Nuisances that change the physics without new tables
   outward; the straggling variances are linear in it.
 * ``stopping_slope`` (one exponent ``b`` per element) multiplies an element's stopping by
   ``(E / E_ref)^b`` with ``E_ref = slope_reference_keV``.  When any ``b`` is non-zero the kernel
-  first rescales that element's tables once (``S f``, ``(S' + S b/E) f`` and
-  ``(S'' + 2 S' b/E + S b (b - 1)/E^2) f`` with ``f = (E/E_ref)^b``: the analytic derivatives of
-  the product), so the slice loop runs at the same cost.
+  first rescales that element's tables once, from the lowest energy it looks up (``S f``,
+  ``(S' + S b/E) f`` and ``(S'' + 2 S' b/E + S b (b - 1)/E^2) f`` with ``f = (E/E_ref)^b``: the
+  analytic derivatives of the product), so the slice loop runs at the same cost.
 
 Inputs
 ------
@@ -285,13 +285,15 @@ def _mix(energy, n_nz, nz_el, nz_c, tab_e0, tab_inv_step, tab_step, S, dS, d2S, 
 
 
 @njit(cache=True, error_model="numpy")
-def _sloped_tables(tab_e0, tab_step, S, dS, d2S, slope, e_ref):
-    """``S``, ``S'``, ``S''`` of every element times ``(E/e_ref)^slope`` (analytic derivatives)."""
+def _sloped_tables(tab_e0, tab_step, S, dS, d2S, slope, e_ref, first=0):
+    """``S``, ``S'``, ``S''`` of every element times ``(E/e_ref)^slope`` (analytic derivatives),
+    from table row ``first`` on (the rows below are copied unchanged: the kernel passes the row
+    of the lowest energy it looks up)."""
     n_el, n = S.shape
     S2 = S.copy()
     dS2 = dS.copy()
     d2S2 = d2S.copy()
-    for i in range(n):
+    for i in range(max(first, 0), n):
         e = tab_e0 + i * tab_step
         log_ratio = math.log(e / e_ref)   # one logarithm per energy, shared by the elements
         inv_e = 1.0 / e
@@ -379,11 +381,6 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
     -------
     (n_rows, n_channels) float64
     """
-    for el in range(stopping_slope.size):
-        if stopping_slope[el] != 0.0:
-            S, dS, d2S = _sloped_tables(tab_e0_keV, tab_step_keV, S, dS, d2S, stopping_slope,
-                                        slope_reference_keV)
-            break
     n_slices = widths_1e15.size
     n_species = fractions.shape[1]
     n_iso = iso_k.size
@@ -406,6 +403,15 @@ def spectrum_kernel(widths_1e15, fractions, species_element, n_elements,
     d0 = edges_keV[0] - BROADENING_HALF_WIDTH * sigma_det_keV - 150.0
     if d0 < floor_keV:
         d0 = floor_keV
+    # stopping slopes: the tables rescaled once, from the row of d0 up (every stopping lookup
+    # is at an energy of at least d0: the characteristics start there and only gain energy,
+    # and an ion is followed in only while k E_in reaches the lowest of them)
+    for el in range(stopping_slope.size):
+        if stopping_slope[el] != 0.0:
+            S, dS, d2S = _sloped_tables(tab_e0_keV, tab_step_keV, S, dS, d2S, stopping_slope,
+                                        slope_reference_keV,
+                                        int((d0 - tab_e0_keV) / tab_step_keV))
+            break
     d_top = k_max * energy_keV + 2.0 * particle_step_keV
     n_p = int(math.ceil((d_top - d0) / particle_step_keV)) + 1
     if n_p < 2:

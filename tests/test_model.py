@@ -13,7 +13,7 @@ import pytest
 from scipy.special import ndtr
 
 import forward
-from forward._kernel import (KernelInputs, broadening_table, spectrum_kernel,
+from forward._kernel import (KernelInputs, _sloped_tables, broadening_table, spectrum_kernel,
                              step_integral_table_eval)
 from forward._path import Slab, detected_energy
 from forward._straggling import straggling_rate
@@ -77,6 +77,14 @@ def test_kernel_matches_reference_with_straggling_scale_and_stopping_slopes():
     nu.stopping_scale = np.array([1.03, 0.98, 1.01, 0.97, 1.02])[: len(model.elements)]
     nu.stopping_slope = np.array([0.08, -0.06, 0.12, -0.1, 0.05])[: len(model.elements)]
     _compare(model, model.layer_fractions(), nu)
+    # the kernel rescales its tables only from the lowest energy it looks up: the same bits as
+    # tables rescaled whole beforehand and no slope
+    inputs = model.kernel_inputs(model.layer_fractions(), nu)
+    whole = _sloped_tables(inputs.tab_e0_keV, inputs.tab_step_keV, inputs.S, inputs.dS,
+                           inputs.d2S, inputs.stopping_slope, inputs.slope_reference_keV)
+    given = inputs._replace(S=whole[0], dS=whole[1], d2S=whole[2],
+                            stopping_slope=np.zeros_like(inputs.stopping_slope))
+    assert np.array_equal(spectrum_kernel(*inputs), spectrum_kernel(*given))
     nu.straggling_scale = 0.0  # no straggling at all: detector resolution alone
     _compare(model, model.layer_fractions(), nu)
 
