@@ -259,7 +259,7 @@ def main(argv=None):
         tmp = Path(tmp)
         if args.scenario == "joint":
             seeds = _seed_list(args.seeds) if args.seeds else [args.seed]
-            runs = [_joint(args, seed, tmp / f"seed{seed}") for seed in seeds]
+            runs = [_joint(args, settings, seed, tmp / f"seed{seed}") for seed in seeds]
             out = runs[0] if len(runs) == 1 else _over_seeds(runs, seeds)
         else:
             run_path = tmp / "run.toml"
@@ -288,11 +288,10 @@ def _seed_list(text: str) -> list:
     return seeds
 
 
-def _joint(args, seed, folder) -> dict:
-    """The joint scenario at one seed: the normal-incidence spectrum alone, then both
-    spectra jointly, timed one after the other."""
+def _joint(args, settings, seed, folder) -> dict:
+    """The joint scenario at one seed (``settings``: the run files' ``[fit]`` values): the
+    normal-incidence spectrum alone, then both spectra jointly, timed one after the other."""
     folder.mkdir()
-    settings = dict(max_steps=args.max_steps, moves=args.moves, walkers=args.walkers)
     for name, text in (("normal", LAYERS), ("tilt45", LAYERS_TILTED)):
         (folder / f"{name}.toml").write_text(text.format(**settings))
         counts = simulate(folder / f"{name}.toml", "joint", seed)

@@ -64,6 +64,10 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
     #: writers' common wait, ``inversion.results._outputs.LOCK_WAIT_S``)
     LOCK_WAIT_S = None
 
+    #: ``(n, totals)``: the cumulative acceptances after step ``n``, kept by the object that
+    #: wrote that step (None: read them from the file)
+    _accepted_after = None
+
     def open(self, mode="r"):
         return waiting_for_lock(lambda: super(SafeHDFBackend, self).open(mode), self.filename,
                                 wait_s=self.LOCK_WAIT_S,
@@ -165,7 +169,7 @@ class SafeHDFBackend(emcee.backends.HDFBackend):
             g = f[self.name]
             self._check_step(g, state, accepted)
             n = int(g.attrs["iteration"])
-            cached = getattr(self, "_accepted_after", None)
+            cached = self._accepted_after
             if cached is not None and cached[0] == n:  # this object wrote step n itself
                 total = cached[1]
             else:
