@@ -235,7 +235,10 @@ def autocorr_growth(chain, *, n_points=12, min_steps=20):
     total = chain.shape[0]
     start = min(max(min_steps, 4), total)
     steps = np.unique(np.geomspace(start, total, n_points).astype(int))
-    tau = np.array([integrated_time(chain[:n], tol=0) for n in steps])
+    # a walker that has not moved yet in a short prefix has no autocorrelation function
+    # (0/0): that prefix's tau is NaN, and the figure leaves the point out
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tau = np.array([integrated_time(chain[:n], tol=0) for n in steps])
     return steps, tau
 
 
