@@ -11,7 +11,6 @@ from __future__ import annotations
 import dataclasses
 import shutil
 
-import emcee
 import h5py
 import numpy as np
 import pytest
@@ -234,54 +233,6 @@ def test_worker_processes_hold_the_joint_objective(world):
         values = pool.map(worker_log_posterior, [theta, theta * 1.001])
     assert values[0] == pytest.approx(joint.log_posterior(theta), rel=1e-12)
     assert values[1] == pytest.approx(joint.log_posterior(theta * 1.001), rel=1e-12)
-
-
-def test_the_two_stages_of_delayed_acceptance_add_up_to_the_posterior(world):
-    # the sampler's first stage is the prior and the spectrum with the fewest fitted channels,
-    # the second the other spectra (inversion/sample/_moves.py); together the log-posterior
-    from inversion.sample._workers import (worker_first_stage, worker_later_stages,
-                                           worker_pool)
-
-    joint = prepare_joint(load_joint(world / "joint.toml"))
-    sizes = [p.channels.size for p in joint.parts]
-    assert joint.first_part == int(np.argmin(sizes))
-    theta = np.array([310.0, 1.02, 0.99, 0.97, 1.03])
-    k = joint.first_part
-    first = joint.first_stage(theta)
-    assert first == pytest.approx(joint.log_prior(theta) + joint.parts[k].log_likelihood(
-        joint.part_theta(theta, k)), rel=1e-12)
-    assert first + joint.later_stages(theta) == pytest.approx(joint.log_posterior(theta),
-                                                              rel=1e-12)
-    outside = theta.copy()
-    outside[0] = -1.0  # outside the prior: no model runs
-    assert joint.first_stage(outside) == -np.inf
-    with worker_pool(joint, 2) as pool:
-        assert pool.map(worker_first_stage, [theta]) == [first]
-        assert pool.map(worker_later_stages, [theta]) == [joint.later_stages(theta)]
-
-
-def test_a_joint_chain_is_the_same_with_two_workers(world, tmp_path):
-    # two-stage acceptance maps each stage over the pool; the chain is the one of one process
-    from inversion import Sampler
-
-    joint = prepare_joint(load_joint(world / "joint.toml"))
-
-    def chain(workers):
-        backend = emcee.backends.Backend()
-        backend.reset(joint.spec.n_walkers, joint.ndim)
-        sampler = Sampler(joint, n_walkers=joint.spec.n_walkers, seed=4, backend=backend,
-                          workers=workers, moves=joint.spec.moves)
-        assert sampler.delayed
-        sampler.run(max_steps=30, tau_multiple=1e6, check_every=10)
-        return backend
-
-    one, two = chain(1), chain(2)
-    assert np.array_equal(one.get_chain(), two.get_chain())
-    assert np.array_equal(one.get_log_prob(), two.get_log_prob())
-    # the stored log-probabilities are the whole posterior's
-    last = two.get_last_sample()
-    assert np.allclose(last.log_prob, [joint.log_posterior(x) for x in last.coords],
-                       rtol=1e-12, atol=0)
 
 
 def test_a_charge_group_shares_one_fluence(world, tmp_path):
@@ -562,7 +513,5 @@ def test_a_joint_fit_with_a_free_width_moves_widths_and_straggling_as_a_block(wo
                                           skiprows=1)[:, 1])[1]
     assert "film.mixing" in single.names
     assert Sampler(single, n_walkers=single.spec.n_walkers).block == []
-    # one spectrum accepts in one stage, several in two
-    assert not Sampler(single, n_walkers=single.spec.n_walkers).delayed and sampler.delayed
     plain = prepare_joint(load_joint(world / "joint.toml"))
     assert Sampler(plain, n_walkers=plain.spec.n_walkers).block == []

@@ -10,8 +10,7 @@ from scipy import stats
 
 from inversion.fit._roles import Role
 from inversion.fit._spec import Parameter
-from inversion.sample._moves import (BlockDEMove, DelayedAcceptance, Stages, SubspaceDEMove,
-                                     edge_spread_block)
+from inversion.sample._moves import BlockDEMove, SubspaceDEMove, edge_spread_block
 from inversion.sample._sampler import make_moves
 
 
@@ -64,59 +63,6 @@ def test_block_moves_sample_a_known_correlated_normal():
         assert stats.kstest(draws[:, j] / scale[j], stats.norm.cdf).pvalue > 0.01 / ndim
     measured = np.corrcoef(draws.T)
     assert np.allclose(measured[np.ix_(block, block)], corr[np.ix_(block, block)], atol=0.06)
-
-
-@pytest.mark.parametrize("kind", ["differential", "stretch"])
-def test_delayed_acceptance_samples_a_known_product_of_normals(kind):
-    # two-stage acceptance (Christen & Fox 2005, J. Comput. Graph. Stat. 14, 795) on a target
-    # that is a product of two normal factors, the first (the "prior and first spectrum")
-    # wide, the second narrow and off-centre: the product is the normal of precision P1 + P2
-    # and mean (P1 + P2)^-1 P2 m2 (common practice).  Marginals compared with scipy.stats.norm
-    # (reference library) by Kolmogorov-Smirnov on thinned draws.  The block, snooker and
-    # stretch moves carry proposal factors into the first stage.
-    ndim, walkers = 5, 32
-    scale1 = np.array([2.0, 1.0, 4.0, 0.5, 1.5])
-    corr = np.full((ndim, ndim), 0.5)
-    np.fill_diagonal(corr, 1.0)
-    p1 = np.linalg.inv(corr * np.outer(scale1, scale1))
-    p2 = np.diag(1.0 / np.array([0.8, 2.0, 1.0, 0.3, 3.0]) ** 2)
-    m2 = np.array([1.5, -0.5, 2.0, 0.4, 0.0])
-    cov = np.linalg.inv(p1 + p2)
-    mean = cov @ p2 @ m2
-    calls = {"first": 0, "later": 0}
-
-    def first(x):
-        calls["first"] += 1
-        return -0.5 * x @ p1 @ x
-
-    def later(x):
-        calls["later"] += 1
-        d = x - m2
-        return -0.5 * d @ p2 @ d
-
-    stages = Stages(first, later)
-    moves = make_moves(kind, [0, 3] if kind == "differential" else (), stages)
-    for move in [m for m, _ in moves] if isinstance(moves, list) else [moves]:
-        assert isinstance(move, DelayedAcceptance) and move.stages is stages
-    rng = np.random.default_rng(5)
-    sampler = emcee.EnsembleSampler(walkers, ndim, lambda x: first(x) + later(x), moves=moves)
-    sampler.random_state = np.random.RandomState(6).get_state()
-    sampler.run_mcmc(mean + rng.normal(0.0, 0.1, (walkers, ndim)), 8000, progress=False)
-    tau = float(np.max(sampler.get_autocorr_time(discard=1000, quiet=True)))
-    assert 7000 > 50 * tau
-    draws = sampler.get_chain(discard=1000, thin=int(np.ceil(tau)), flat=True)
-    sd = np.sqrt(np.diag(cov))
-    for j in range(ndim):
-        # five tests at a family-wise false-alarm rate of 1 % (Bonferroni)
-        z = (draws[:, j] - mean[j]) / sd[j]
-        assert stats.kstest(z, stats.norm.cdf).pvalue > 0.01 / ndim, j
-    assert np.allclose(np.corrcoef(draws.T), cov / np.outer(sd, sd), atol=0.08)
-    # the second factor was evaluated only for proposals the first stage passed
-    assert calls["later"] < 0.7 * calls["first"]
-    # the stored log-probabilities are the whole target's
-    state = sampler.get_last_sample()
-    assert np.allclose(state.log_prob, [first(x) + later(x) for x in state.coords],
-                       rtol=0, atol=1e-9)
 
 
 def test_the_block_move_holds_the_other_coordinates():

@@ -217,8 +217,6 @@ class JointObjective:
         The first measurement's, with the joint parameters.
     takes : list of ndarray of int
         ``theta[takes[k]]`` is measurement ``k``'s parameter vector.
-    first_part : int
-        The measurement of the sampler's first stage (:meth:`first_stage`).
     """
 
     def __init__(self, parts, names, groups=None, detector_groups=None):
@@ -274,10 +272,6 @@ class JointObjective:
         #: the result file's ``/input/spectrum`` keeps)
         self.counts = np.concatenate([p.counts for p in self.parts])
         self.measured = np.concatenate([p.measured for p in self.parts])
-        #: the measurement the sampler's first stage looks at (:meth:`first_stage`): the one
-        #: with the fewest fitted channels, whose model is usually the cheapest to run (ties go
-        #: to the earlier one)
-        self.first_part = int(np.argmin([p.channels.size for p in self.parts]))
 
     @property
     def model(self):
@@ -310,36 +304,6 @@ class JointObjective:
     #: log_prior + log_likelihood, -inf before any model runs when outside the prior (the
     #: single objective's own method, on these two)
     log_posterior = Objective.log_posterior
-
-    # ----- the two stages of delayed acceptance (inversion/sample/_moves.py) -----
-    def first_stage(self, theta) -> float:
-        """log prior + the log-likelihood of :attr:`first_part` alone (-inf outside the
-        prior, before any model runs)."""
-        value = self.log_prior(theta)
-        if not math.isfinite(value):
-            return -np.inf
-        if not self.use_likelihood:
-            return value
-        k = self.first_part
-        part = self.parts[k].log_likelihood(np.asarray(theta, dtype=float)[self.takes[k]])
-        return value + part if math.isfinite(part) else -np.inf
-
-    def later_stages(self, theta) -> float:
-        """The log-likelihoods of every measurement but :attr:`first_part`, summed:
-        ``first_stage + later_stages`` is the log-posterior."""
-        if not self.use_likelihood:
-            return 0.0
-        theta = np.asarray(theta, dtype=float)
-        first = self.first_part
-        total = 0.0
-        for k, (part, take) in enumerate(zip(self.parts, self.takes)):
-            if k == first:
-                continue
-            value = part.log_likelihood(theta[take])
-            if not math.isfinite(value):
-                return -np.inf
-            total += value
-        return total
 
     __call__ = log_posterior
 

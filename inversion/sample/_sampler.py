@@ -19,10 +19,9 @@ from ._convergence import (WALKER_GROUPS, SamplerStatus, autocorr_summary, group
                            is_converged)
 from ._start import (START_MAXITER, START_POPSIZE, find_start, find_starts, laplace_covariance,
                      prior_bounds, starts_disagree, walker_ball, walker_groups)
-from ._moves import BlockDEMove, Stages, SubspaceDEMove, delayed, edge_spread_block
+from ._moves import BlockDEMove, SubspaceDEMove, edge_spread_block
 from ._polish import gradient_polish
-from ._workers import (worker_first_stage, worker_later_stages, worker_log_posterior,
-                       worker_pool)
+from ._workers import worker_log_posterior, worker_pool
 
 __all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt",
            "DIFFERENTIAL_SHARES"]
@@ -33,7 +32,7 @@ __all__ = ["Sampler", "SamplerStatus", "make_moves", "stop_on_interrupt",
 DIFFERENTIAL_SHARES = (0.7, 0.1, 0.2)
 
 
-def make_moves(kind: str, block=(), stages=None):
+def make_moves(kind: str, block=()):
     """emcee moves by name: ``"stretch"`` (affine-invariant stretch move, Goodman & Weare 2010,
     Comm. App. Math. Comp. Sci. 5, 65) or ``"differential"`` (differential evolution moves,
     ter Braak 2006, Stat. Comput. 16, 239, mixed 4:1 with the snooker update, ter Braak &
@@ -44,27 +43,17 @@ def make_moves(kind: str, block=(), stages=None):
     (:func:`inversion.sample._moves.edge_spread_block`).  When given, ``"differential"`` spends
     a share of its proposals (:data:`DIFFERENTIAL_SHARES`) on differential evolution in that
     block alone (:class:`inversion.sample._moves.BlockDEMove`).
-
-    ``stages``: a :class:`inversion.sample._moves.Stages`; when given, every move accepts in
-    two stages (delayed acceptance, fits of several spectra).
     """
-    def move(cls, *args):
-        if stages is None:
-            return cls(*args)
-        out = delayed(cls)(*args)
-        out.stages = stages
-        return out
-
     if kind == "stretch":
-        return move(emcee.moves.StretchMove)
+        return emcee.moves.StretchMove()
     if kind == "differential":
         if len(block):
             whole, part, snooker = DIFFERENTIAL_SHARES
-            return [(move(emcee.moves.DEMove), whole), (move(BlockDEMove, block), part),
-                    (move(emcee.moves.DESnookerMove), snooker)]
-        return [(move(emcee.moves.DEMove), 0.8), (move(emcee.moves.DESnookerMove), 0.2)]
+            return [(emcee.moves.DEMove(), whole), (BlockDEMove(block), part),
+                    (emcee.moves.DESnookerMove(), snooker)]
+        return [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
     if kind == "subspace":
-        return [(move(SubspaceDEMove), 0.8), (move(emcee.moves.DESnookerMove), 0.2)]
+        return [(SubspaceDEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
     raise ValueError(f"unknown moves {kind!r}")
 
 
@@ -85,9 +74,6 @@ class Sampler:
         Processes evaluating the objective (1: this process only).
     moves : str
         ``"stretch"`` or ``"differential"`` (see :func:`make_moves`).
-    delayed : bool
-        Accept in two stages when the objective has several spectra (delayed acceptance,
-        :mod:`inversion.sample._moves`); False: one stage, as for one spectrum.
     """
 
     #: differential evolution settings for the MAP start
@@ -95,7 +81,7 @@ class Sampler:
     START_MAXITER = START_MAXITER
 
     def __init__(self, objective, *, n_walkers, seed=0, backend=None, workers=1,
-                 moves="stretch", delayed=True):
+                 moves="stretch"):
         self.objective = objective
         self.ndim = objective.ndim
         if n_walkers < 2 * self.ndim:
@@ -111,18 +97,6 @@ class Sampler:
         spec = getattr(objective, "spec", None)
         self.block = edge_spread_block(getattr(spec, "parameters", ()),
                                        measurements=len(getattr(objective, "parts", ())) or 1)
-        #: two-stage acceptance: an objective of several spectra that offers the stages
-        self.delayed = bool(delayed) and len(getattr(objective, "parts", ())) > 1 \
-            and hasattr(objective, "later_stages")
-
-    def stages(self, pool=None):
-        """The :class:`~inversion.sample._moves.Stages` of delayed acceptance (None without):
-        the worker functions with a pool, the objective's own methods without."""
-        if not self.delayed:
-            return None
-        if pool is not None:
-            return Stages(worker_first_stage, worker_later_stages)
-        return Stages(self.objective.first_stage, self.objective.later_stages)
 
     # ----- start -----
     def find_start(self, pool=None):
@@ -219,8 +193,7 @@ class Sampler:
             fn = worker_log_posterior if pool is not None else self.objective.log_posterior
             sampler = emcee.EnsembleSampler(self.n_walkers, self.ndim, fn, pool=pool,
                                             backend=self.backend,
-                                            moves=make_moves(self.moves, self.block,
-                                                             self.stages(pool)))
+                                            moves=make_moves(self.moves, self.block))
             if done > 0:
                 converged, status.tau, status.rhat = self._check(sampler, tau_multiple)
                 if converged and done % check_every == 0:

@@ -15,7 +15,7 @@ import numpy as np
 from ..results._outputs import release_inherited_locks
 
 __all__ = ["PENALTY", "DEFAULT_WORKERS", "worker_pool", "worker_log_posterior", "worker_cost",
-           "worker_first_stage", "worker_later_stages", "LocalCost"]
+           "LocalCost"]
 
 #: Workers of the command line's inversions.  Two processes ran the 10-parameter layer
 #: benchmark 1.5x faster than one on a 2-core machine (benchmarks/RESULTS.md, "Inversion"),
@@ -55,17 +55,6 @@ def _objective():
 def worker_log_posterior(theta):
     """The worker's objective's log-posterior."""
     return _objective().log_posterior(theta)
-
-
-def worker_first_stage(theta):
-    """The worker's objective's first stage of delayed acceptance (a joint objective's
-    ``first_stage``)."""
-    return _objective().first_stage(theta)
-
-
-def worker_later_stages(theta):
-    """The worker's objective's second stage of delayed acceptance (``later_stages``)."""
-    return _objective().later_stages(theta)
 
 
 def worker_cost(theta):
