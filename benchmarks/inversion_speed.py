@@ -333,11 +333,11 @@ def _over_seeds(runs, seeds) -> dict:
     range (the chain lengths, hence the ratio, change from seed to seed)."""
     ratios = [r["wall_ratio"] for r in runs]
     out = {"scenario": "joint", "seeds": seeds, "runs": runs,
-            "wall_ratio_median": round(float(np.median(ratios)), 2),
-            "wall_ratio_range": [min(ratios), max(ratios)],
-            "step_ratio_median": round(float(np.median([r["step_ratio"] for r in runs])), 3),
-            "seeds_within_2x": sum(r <= 2.0 for r in ratios),
-            "date": time.strftime("%Y-%m-%d %H:%M")}
+           "wall_ratio_median": round(float(np.median(ratios)), 2),
+           "wall_ratio_range": [min(ratios), max(ratios)],
+           "step_ratio_median": round(float(np.median([r["step_ratio"] for r in runs])), 3),
+           "seeds_within_2x": sum(r <= 2.0 for r in ratios),
+           "date": time.strftime("%Y-%m-%d %H:%M")}
     separate = [r["wall_ratio_vs_separate"] for r in runs if "wall_ratio_vs_separate" in r]
     if separate:
         out["wall_ratio_vs_separate_median"] = round(float(np.median(separate)), 2)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import math
+import warnings
 import xml.etree.ElementTree as ET
 
 import h5py
@@ -305,6 +306,18 @@ def test_autocorrelation_of_an_ar1_chain():
     n, tau = _chain_figures.autocorr_growth(chain, n_points=6)
     assert n[-1] == steps and tau.shape == (n.size, 1)
     assert tau[-1, 0] == pytest.approx((1 + phi) / (1 - phi), rel=0.1)
+
+
+def test_autocorrelation_growth_leaves_out_prefixes_where_a_walker_has_not_moved():
+    # a walker held still for the first 50 steps has no autocorrelation function there (0/0):
+    # those prefixes give NaN, quietly, and the longer ones a finite time
+    rng = np.random.default_rng(6)
+    chain = rng.standard_normal((400, 6, 2))
+    chain[:50, 0, :] = chain[0, 0, :]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        n, tau = _chain_figures.autocorr_growth(chain, n_points=8)
+    assert np.all(np.isnan(tau[n <= 50])) and np.all(np.isfinite(tau[n > 50]))
 
 
 def test_corner_keeps_room_for_thicknesses_and_widths(converged):
